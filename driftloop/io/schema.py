@@ -71,11 +71,11 @@ def wrap_lon(lon: np.ndarray) -> np.ndarray:
     """
     lon = np.asarray(lon, dtype=float)
     with np.errstate(invalid="ignore"):
-        wrapped = np.mod(lon + 180.0, 360.0) - 180.0
-        # np.mod of a tiny negative number can round to 360 exactly
-        wrapped = np.where(wrapped >= 180.0, wrapped - 360.0, wrapped)
-        valid = (lon >= -180.0) & (lon <= 360.0)
-    return np.where(valid, wrapped, lon)
+        # only values at or beyond 180 change, so in-range values keep every bit
+        shift = (lon >= 180.0) & (lon <= 360.0)
+        wrapped = np.where(shift, lon - 360.0, lon)
+        # 360 - 360 = 0 and 180 - 360 = -180 land inside [-180, 180)
+    return wrapped
 
 
 def make_fixes(
