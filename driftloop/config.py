@@ -73,9 +73,10 @@ class QCConfig:
     outlier_min_m : float
         Smallest distance from the predicted position ever called an outlier (m).
     outlier_accel_m_s2 : float
-        Acceleration that real drifter motion can reach (m/s2); sets how far
-        a fix may curve away from a straight prediction.  Inertial motion of
-        1 m/s at the poles gives about 1.5e-4 m/s2.
+        Acceleration that real drifter motion can reach (m/s2); with the
+        rate 2 * Omega * a at which it can turn, bounds how far real motion
+        departs from the local fit of the position-outlier test.  Inertial
+        motion of 1 m/s at the poles gives about 1.5e-4 m/s2.
     ship_speed_m_s : float
         Sustained speed above which the drifter is taken to be aboard a ship (m/s).
     ship_min_duration_h : float
@@ -88,8 +89,16 @@ class QCConfig:
     near_land_km : float
         Distance from the nearest land cell within which a still drifter is
         called grounded (km).
+    speed_max_run_fixes : int
+        Longest run of fixes that the speed tests remove as an excursion
+        from the track (a spike is a run of one); a fast leg between longer
+        runs only marks its two ends suspect.
+    same_time_s : float
+        Fixes of one drifter closer in time than this are taken as the same
+        instant (s): duplicates if at the same position, else time conflicts.
     land_test : bool
-        Whether to run the on-land test against the bundled 1-km land mask.
+        Whether to run the tests that need the bundled 1-km land mask
+        (on land, grounded).
     gap_h : float
         Interval between fixes above which a gap is recorded and the track is
         broken into segments (h).
@@ -106,6 +115,8 @@ class QCConfig:
     grounded_max_drift_m: float = 100.0
     grounded_min_duration_h: float = 6.0
     near_land_km: float = 10.0
+    speed_max_run_fixes: int = 3
+    same_time_s: float = 1.0
     land_test: bool = True
     gap_h: float = 6.0
 
