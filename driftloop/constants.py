@@ -16,6 +16,10 @@ WGS84_INV_F = 298.257223563
 #: Semi-minor axis b = a (1 - f) (m). *Derived*.
 WGS84_B_M = WGS84_A_M * (1.0 - 1.0 / WGS84_INV_F)
 
+#: First eccentricity squared of the WGS 84 ellipsoid, e^2 = f (2 - f)
+#: (dimensionless). *Derived* from the flattening (0.00669437999).
+WGS84_E2 = (2.0 - 1.0 / WGS84_INV_F) / WGS84_INV_F
+
 #: Mean radius R1 = (2a + b) / 3 (m), IUGG definition. *Derived* (6371008.77 m).
 EARTH_MEAN_RADIUS_M = (2.0 * WGS84_A_M + WGS84_B_M) / 3.0
 
