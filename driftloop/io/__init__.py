@@ -129,7 +129,7 @@ def read_tracks(
     Examples
     --------
     >>> import driftloop
-    >>> fixes = driftloop.read_tracks(["sample_tracks/LANTERN-01.csv"])  # doctest: +SKIP
+    >>> fixes = driftloop.read_tracks(["sample_tracks/orravane_a.csv"])  # doctest: +SKIP
     """
     if isinstance(paths, str | Path):
         paths = [paths]

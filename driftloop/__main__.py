@@ -1,0 +1,7 @@
+"""Allow ``python -m driftloop``."""
+
+import sys
+
+from driftloop.cli import main
+
+sys.exit(main())

@@ -1,0 +1,264 @@
+"""Command line: a thin layer over :mod:`driftloop.pipeline`.
+
+Exit status: 0 success, 1 bad input (one-line message naming file, row and
+column), 2 bad usage.  ``--debug`` shows the traceback of an error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import traceback
+from collections.abc import Sequence
+from pathlib import Path
+
+from driftloop import __version__
+from driftloop.errors import ConfigError, DriftloopError, InputError
+from driftloop.notices import CAUTION, CAUTION_SHORT
+
+__all__ = ["build_parser", "main"]
+
+#: How many row-level problems are printed before they are only counted.
+MAX_ROW_WARNINGS = 10
+
+_EXAMPLES_ANALYSE = """\
+examples:
+  driftloop analyse sample_tracks/orravane_a.csv --out runs/orravane_a
+  driftloop analyse tracks/*.gpx --out runs/gpx --config strict.toml
+  driftloop analyse buoys.csv --columns id=buoy,time=obs_time --out runs/buoys
+"""
+
+_EXAMPLES_QC = """\
+examples:
+  driftloop qc sample_tracks/orravane_a.csv --out runs/orravane-qc
+  driftloop qc release.nc --out runs/qc --no-land-test
+"""
+
+
+def _add_input_options(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "inputs", nargs="+", metavar="INPUT",
+        help="track files (.csv .tsv .txt .parquet .nc .gpx) or folders holding them",
+    )
+    parser.add_argument("--out", required=True, metavar="DIR", help="output folder")
+    parser.add_argument("--config", metavar="FILE.toml", help="TOML file overriding defaults")
+    parser.add_argument(
+        "--columns", metavar="ROLE=NAME[,...]",
+        help="map roles id, time, date, lat, lon to column names, e.g. id=buoy,time=obs_time",
+    )
+    parser.add_argument(
+        "--separator", choices=[",", ";", "tab"], help="field separator (default: sniffed)"
+    )
+    parser.add_argument(
+        "--drifter-id", metavar="ID", help="drifter id for files without an id column"
+    )
+    parser.add_argument(
+        "--no-land-test", action="store_true", help="skip the on-land and grounded tests"
+    )
+    parser.add_argument(
+        "--strict", action="store_true",
+        help="stop with an error at the first unparseable or out-of-range value",
+    )
+    parser.add_argument(
+        "--overwrite", action="store_true",
+        help="write into a non-empty folder that is not a previous driftloop run",
+    )
+    parser.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    parser.add_argument("--debug", action="store_true", help="show tracebacks of errors")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Build the argument parser of the ``driftloop`` command.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        The parser with its subcommands.
+    """
+    parser = argparse.ArgumentParser(
+        prog="driftloop",
+        description="Quality control and loop analysis of ocean surface drifter tracks.",
+        epilog=CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"driftloop {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    analyse = commands.add_parser(
+        "analyse", help="run every stage on track files",
+        description="Read track files, flag every fix and write all outputs to --out.",
+        epilog=_EXAMPLES_ANALYSE + "\n" + CAUTION,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    _add_input_options(analyse)
+    qc = commands.add_parser(
+        "qc", help="quality-control fixes only",
+        description="Read track files and flag every fix on the QARTOD scale "
+        "(writes fixes.csv and summary.json).",
+        epilog=_EXAMPLES_QC + "\n" + CAUTION,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    _add_input_options(qc)
+    return parser
+
+
+def _parse_columns(text: str | None) -> dict[str, str]:
+    if not text:
+        return {}
+    mapping = {}
+    for item in text.split(","):
+        role, sep, name = item.partition("=")
+        role, name = role.strip().lower(), name.strip()
+        if not sep or not role or not name:
+            raise ConfigError(f"--columns: expected ROLE=NAME, got {item!r}")
+        if role not in {"id", "time", "date", "lat", "lon"}:
+            raise ConfigError(
+                f"--columns: unknown role {role!r}; roles are id, time, date, lat, lon"
+            )
+        mapping[role] = name
+    return mapping
+
+
+def _expand_inputs(items: Sequence[str]) -> list[Path]:
+    from driftloop.io import reader_kind
+
+    paths: list[Path] = []
+    for item in items:
+        path = Path(item)
+        if path.is_dir():
+            found = sorted(
+                p for p in path.iterdir() if p.is_file() and _readable_suffix(p, reader_kind)
+            )
+            if not found:
+                raise InputError(str(path), "folder holds no track files")
+            paths.extend(found)
+        elif not path.exists():
+            raise InputError(str(path), "no such file or folder")
+        else:
+            paths.append(path)
+    return paths
+
+
+def _readable_suffix(path: Path, reader_kind) -> bool:
+    try:
+        reader_kind(path)
+    except InputError:
+        return False
+    return True
+
+
+def _make_config(args: argparse.Namespace):
+    from driftloop.config import load_config
+
+    config = load_config(args.config)
+    read_changes = {}
+    columns = _parse_columns(args.columns)
+    if columns:
+        read_changes["columns"] = {**config.read.columns, **columns}
+    if args.separator:
+        read_changes["separator"] = "\t" if args.separator == "tab" else args.separator
+    if args.drifter_id:
+        read_changes["drifter_id"] = args.drifter_id
+    if read_changes:
+        config = config.replace("read", **read_changes)
+    if args.no_land_test:
+        config = config.replace("qc", land_test=False)
+    return config
+
+
+def _row_problems(fixes) -> tuple[list[InputError], int]:
+    """Locate rows that did not parse or hold impossible coordinates."""
+    bad = fixes[
+        fixes["qc_reasons"].str.contains(
+            r"unparseable|lat_out_of_range|lon_out_of_range", regex=True
+        )
+    ]
+    problems = []
+    for row in bad.head(MAX_ROW_WARNINGS).itertuples(index=False):
+        if row.parse_error:
+            column, _, message = str(row.parse_error).partition(":")
+            if not message:
+                column, message = None, column
+            problems.append(InputError(row.source_file, message.strip(), row=row.source_row,
+                                       column=column and column.strip()))
+        elif "lat_out_of_range" in row.qc_reasons:
+            problems.append(InputError(row.source_file, f"latitude {row.lat} is outside "
+                                       "[-90, 90]", row=row.source_row, column="lat"))
+        else:
+            problems.append(InputError(row.source_file, f"longitude {row.lon} is outside "
+                                       "[-180, 360]", row=row.source_row, column="lon"))
+    return problems, len(bad)
+
+
+def _report_row_problems(fixes, strict: bool, quiet: bool) -> None:
+    problems, count = _row_problems(fixes)
+    if strict and problems:
+        raise problems[0]
+    if quiet:
+        return
+    for problem in problems:
+        print(f"driftloop: warning: {problem} (kept, flagged)", file=sys.stderr)
+    if count > len(problems):
+        print(f"driftloop: warning: ... and {count - len(problems)} more such rows; "
+              "see qc_reasons in fixes.csv", file=sys.stderr)
+
+
+def _run(args: argparse.Namespace) -> int:
+    from driftloop.pipeline import analyse
+
+    config = _make_config(args)
+    paths = _expand_inputs(args.inputs)
+    result = analyse(paths, config, progress=not args.quiet)
+    _report_row_problems(result.fixes, args.strict, args.quiet)
+    written = result.write(args.out, overwrite=args.overwrite, protect=paths)
+    if not args.quiet:
+        release = result.summary["release"]
+        flags = release["by_flag"]
+        print(
+            f"{release['drifters']} drifters, {release['fixes']} fixes: "
+            f"{flags['pass']} pass, {flags['suspect']} suspect, {flags['fail']} fail, "
+            f"{flags['missing']} missing"
+        )
+        for note in release["notes"]:
+            print(f"note: {note}")
+        print("wrote " + ", ".join(str(p) for p in written))
+        print(CAUTION_SHORT)
+    return 0
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the ``driftloop`` command.
+
+    Parameters
+    ----------
+    argv : sequence of str, optional
+        Arguments (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        Exit status: 0 success, 1 bad input, 2 bad usage.
+    """
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return _run(args)
+    except DriftloopError as exc:
+        if args.debug:
+            traceback.print_exc()
+        print(f"driftloop: error: {exc}", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        print("driftloop: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # a bug: still no traceback unless asked for
+        if args.debug:
+            traceback.print_exc()
+        print(
+            f"driftloop: internal error: {type(exc).__name__}: {' '.join(str(exc).split())} "
+            "(run again with --debug for details and please report it)",
+            file=sys.stderr,
+        )
+        return 3
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
