@@ -331,6 +331,20 @@ def test_displaced_fix_on_an_inertial_loop_is_an_outlier():
     assert out.at[33, "qc_reasons"] == "position_outlier"
 
 
+def test_displaced_fix_after_a_lost_fix_blames_the_right_one():
+    # A 5 km displacement right after a lost fix, on a 12 km, 4-day eddy orbit:
+    # the good fix after it has the worse prediction (it leans on the bad fix),
+    # but leaving the bad fix out is what makes its neighbours consistent again.
+    hours = np.delete(np.arange(0, 48, 1.0), 20)  # fix at 20 h lost
+    phase = 2 * np.pi * hours / 96.0
+    fixes = table(local_track(12000 * np.cos(phase), 12000 * np.sin(phase), hours=hours,
+                              origin=(44.0, -37.0), noise_m=8.0, seed=3))
+    move(fixes, 20, 300.0, 5000.0)  # the fix at 21 h
+    out = run_qc(fixes)
+    assert flagged(out) == {20}
+    assert out.at[20, "qc_reasons"] == "position_outlier"
+
+
 def test_outliers_near_track_ends_do_not_condemn_their_neighbours():
     # the first and last two fixes have fewer than two neighbours on one side:
     # the outlier test leaves them (and so cannot be misled by them)

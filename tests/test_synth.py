@@ -309,3 +309,20 @@ def test_fixes_csv_format(tmp_path):
     assert drifter == "F" and time.endswith("Z") and len(time) == 20
     assert len(lat.split(".")[1]) == 6 and len(lon.split(".")[1]) == 6
     assert str(release.fixes["time"].dtype) == "datetime64[ns, UTC]"
+
+
+def test_qc_finds_exactly_the_corruptions_injected_in_the_sample():
+    # Regression on invented data: the generator's ground truth says which
+    # records are spikes or duplicated; QC must fail exactly those.
+    from driftloop import read_tracks, run_qc
+    from driftloop.config import QCConfig
+
+    folder = Path(__file__).resolve().parent.parent / "sample_tracks"
+    fixes = read_tracks(folder / "orravane_a.csv")
+    truth = pd.read_csv(folder / "orravane_a_truth.csv")
+    bad = truth[truth["corruption"].isin(["spike", "duplicate"])]
+    expected = set(bad["fix_row"] + 2)  # header is row 1
+    out = run_qc(fixes, QCConfig(land_test=False))
+    failed = set(out.loc[out["qc_flag"] == 4, "source_row"])
+    assert failed == expected
+    assert (out["qc_flag"] != 3).all()
