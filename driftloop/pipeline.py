@@ -54,7 +54,7 @@ class Analysis:
     ----------
     fixes : pandas.DataFrame
         Every input row with its QC flag, reasons and segment number, in
-        input order (files as given, rows in file order).
+        input order (files sorted by name, rows in file order).
     summary : dict
         Accounting per drifter and for the release (``summary.json``).
     config : Config
@@ -286,6 +286,8 @@ def analyse(
         info = [{"file": f, "rows": int(n)} for f, n in files.value_counts(sort=False).items()]
     else:
         paths = [inputs] if isinstance(inputs, str | Path) else list(inputs)
+        # outputs must not depend on the order the files were named in
+        paths = sorted(paths, key=str)
         tables, info = [], []
         for path in paths:
             table = read_file(path, config.read)
