@@ -106,11 +106,11 @@ import pandas as pd
 
 from driftloop.constants import (
     AIR_DENSITY_KG_M3,
-    EARTH_ROTATION_RATE_RAD_S,
     SEAWATER_DENSITY_KG_M3,
     WGS84_A_M,
     WGS84_E2,
 )
+from driftloop.physics import coriolis_parameter
 
 __all__ = [
     "FIELD_CSV_COLUMNS",
@@ -538,33 +538,6 @@ class SyntheticRelease:
 # ---------------------------------------------------------------------------
 # geometry and physics helpers
 # ---------------------------------------------------------------------------
-
-
-def coriolis_parameter(lat: np.ndarray | float) -> np.ndarray:
-    """Return the Coriolis parameter f = 2 Omega sin(lat).
-
-    Parameters
-    ----------
-    lat : array_like
-        Latitude, degrees north.
-
-    Returns
-    -------
-    numpy.ndarray
-        f (rad/s), negative in the southern hemisphere.
-
-    Notes
-    -----
-    Omega is the WGS 84 rotation rate,
-    :data:`driftloop.constants.EARTH_ROTATION_RATE_RAD_S`.  The inertial
-    period is 2 pi / |f|.
-
-    Examples
-    --------
-    >>> print(f"{2 * np.pi / coriolis_parameter(45.0) / 3600:.3f}")
-    16.924
-    """
-    return 2.0 * EARTH_ROTATION_RATE_RAD_S * np.sin(np.asarray(lat, dtype=float) * _DEG)
 
 
 def _radii(sin2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
