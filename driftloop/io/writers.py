@@ -47,6 +47,11 @@ def atomic_open(path: str | Path, mode: str = "w", **kwargs: Any) -> Iterator[IO
     if "b" not in mode:
         kwargs.setdefault("encoding", "utf-8")
         kwargs.setdefault("newline", "")
+    # mkstemp creates the file readable by its owner only; give it the usual
+    # permissions of a new file (0666 less the umask)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         with os.fdopen(fd, mode, **kwargs) as handle:
             yield handle

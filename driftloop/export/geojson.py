@@ -1,0 +1,554 @@
+"""GeoJSON (RFC 7946) writer with byte-level control of the output.
+
+Butler, H., Daly, M., Doyle, A., Gillies, S., Hagen, S. and Schaub, T.
+(2016), *The GeoJSON Format*, IETF RFC 7946.  What this module guarantees:
+
+- positions are ``[longitude, latitude]`` in decimal degrees on WGS 84
+  (§3.1.1, §4); no ``crs`` member is written (§4 removed it);
+- coordinates are rounded to 1e-6 degree (about 0.1 m), written in plain
+  decimal notation without trailing zeros (§11.2 recommends six decimals);
+- longitudes lie in [-180, 180] (snapping to the grid keeps geometries
+  valid: vertices that fall onto their neighbour are dropped);
+  a line or polygon that crosses the
+  antimeridian is cut there into a ``MultiLineString`` or ``MultiPolygon``
+  (§3.1.9), by the ``antimeridian`` package, which places the cut at the
+  great-circle crossing latitude;
+- polygon rings follow the right-hand rule: exterior rings counter-clockwise,
+  holes clockwise (§3.1.6), enforced with :func:`shapely.geometry.polygon.orient`;
+- every feature with a line or polygon geometry, and the collection, carry a
+  ``bbox`` ``[west, south, east, north]`` (§5); a box that spans the
+  antimeridian has ``west > east`` (§5.2);
+- property types are stable per column: numbers stay numbers (NaN and
+  infinities become ``null``), times become ISO 8601 strings ending in ``Z``,
+  booleans stay booleans, missing values are ``null``;
+- key order and feature order are fixed, so the same layer gives the same
+  bytes every time; one feature per line;
+- run provenance goes in a foreign member ``"driftloop"`` of the
+  FeatureCollection (§6.1), and the layer name in the foreign member
+  ``"name"``, which GDAL reads as the layer name.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Iterable, Mapping
+from json.encoder import encode_basestring
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import antimeridian
+import numpy as np
+import pandas as pd
+import shapely
+from shapely.geometry.base import BaseGeometry
+from shapely.geometry.polygon import orient
+
+from driftloop.io.writers import atomic_open, format_time
+
+if TYPE_CHECKING:
+    import geopandas as gpd
+
+__all__ = [
+    "COORDINATE_DECIMALS",
+    "conform_geometries",
+    "conform_geometry",
+    "geojson_bbox",
+    "geojson_text",
+    "plain_data",
+    "property_values",
+    "write_geojson",
+]
+
+#: Decimals of a degree kept in written coordinates (1e-6 deg ~ 0.11 m).
+COORDINATE_DECIMALS = 6
+
+_LINES = ("LineString", "MultiLineString")
+_POLYGONS = ("Polygon", "MultiPolygon")
+_POINTS = ("Point", "MultiPoint")
+#: shapely type ids of points (Point, MultiPoint) and polygons (Polygon, MultiPolygon).
+_POINT_IDS = (0, 4)
+_POLYGON_IDS = (3, 6)
+
+
+def _wrap_lon(lon: np.ndarray) -> np.ndarray:
+    """Bring longitudes into [-180, 180]; values already there keep every bit."""
+    lon = np.asarray(lon, dtype=float)
+    outside = (lon < -180.0) | (lon > 180.0)
+    if not outside.any():
+        return lon
+    return np.where(outside, (lon + 180.0) % 360.0 - 180.0, lon)
+
+
+def _wrap_array(geoms: np.ndarray) -> np.ndarray:
+    return shapely.transform(
+        geoms, lambda xy: np.column_stack([_wrap_lon(xy[:, 0]), xy[:, 1]])
+    )
+
+
+def _crosses_antimeridian(geom: BaseGeometry) -> bool:
+    """Whether consecutive vertices of any ring are more than 180° of longitude apart."""
+    polygons = geom.geoms if geom.geom_type == "MultiPolygon" else [geom]
+    for polygon in polygons:
+        for ring in (polygon.exterior, *polygon.interiors):
+            lon = np.asarray(ring.coords)[:, 0]
+            if lon.size > 1 and np.abs(np.diff(lon)).max() > 180.0:
+                return True
+    return False
+
+
+def _orient_polygons(geom: BaseGeometry) -> BaseGeometry:
+    if geom.geom_type == "Polygon":
+        return orient(geom, sign=1.0)
+    return shapely.MultiPolygon([orient(part, sign=1.0) for part in geom.geoms])
+
+
+def conform_geometry(geom: BaseGeometry | None) -> BaseGeometry | None:
+    """Make a geometry in degrees fit RFC 7946: wrapped, cut at ±180°, right-handed.
+
+    Parameters
+    ----------
+    geom : shapely geometry or None
+        Point, LineString or Polygon (or their Multi forms) with longitude,
+        latitude coordinates in degrees.  Longitudes outside [-180, 180]
+        are wrapped first; consecutive vertices more than
+        180° of longitude apart are taken to cross the antimeridian (the
+        short way round), as geodesic tracks and rings do.
+        A polygon ring that crosses the antimeridian must run
+        counter-clockwise as seen from above (other rings may run either way).
+
+    Returns
+    -------
+    shapely geometry or None
+        The geometry with every longitude in [-180, 180]; lines and polygons
+        that crossed the antimeridian are split there into Multi* parts that
+        meet at ±180°; polygon exteriors counter-clockwise and holes
+        clockwise.  ``None`` for ``None`` or an empty geometry.
+
+    Raises
+    ------
+    TypeError
+        For geometry collections and other unsupported types.
+
+    Notes
+    -----
+    RFC 7946 §3.1.9 (antimeridian cutting) and §3.1.6 (winding).  The cut
+    is made by :func:`antimeridian.fix_shape` (great-circle crossing
+    latitude), the winding by :func:`shapely.geometry.polygon.orient`.
+
+    Examples
+    --------
+    >>> from shapely import LineString
+    >>> print(conform_geometry(LineString([(179.5, 10.0), (-179.5, 10.0)])).geom_type)
+    MultiLineString
+    """
+    if geom is None or geom.is_empty:
+        return None
+    kind = geom.geom_type
+    if kind in _POINTS:
+        return _wrap_array(geom)
+    if kind in _LINES:
+        fixed = shapely.geometry.shape(
+            antimeridian.fix_shape(_wrap_array(geom), great_circle=True)
+        )
+        return fixed
+    if kind in _POLYGONS:
+        geom = _wrap_array(geom)
+        if not _crosses_antimeridian(geom):
+            return _orient_polygons(geom)
+        # fix_winding=False: a ring that crosses the antimeridian can look
+        # clockwise in wrapped coordinates; it is taken as given
+        # (counter-clockwise on the sphere) and must not be reversed first.
+        fixed = shapely.geometry.shape(
+            antimeridian.fix_shape(geom, fix_winding=False, great_circle=True)
+        )
+        return _orient_polygons(fixed)
+    raise TypeError(f"cannot write a {kind} as an RFC 7946 layer geometry")
+
+
+def conform_geometries(geoms: Any) -> np.ndarray:
+    """Apply :func:`conform_geometry` to an array of geometries.
+
+    Parameters
+    ----------
+    geoms : array_like of shapely geometry or None
+        For example a :class:`geopandas.GeoSeries`.
+
+    Returns
+    -------
+    numpy.ndarray
+        Object array of conformed geometries (``None`` for missing or empty
+        ones).  Points are wrapped in one vectorised step; lines and
+        polygons one by one.
+    """
+    out = _object_array(geoms)
+    present = ~shapely.is_missing(out)
+    present[present] = ~shapely.is_empty(out[present])
+    out[~present] = None
+    kinds = np.full(out.shape, -1)
+    kinds[present] = shapely.get_type_id(out[present])
+    points = np.isin(kinds, _POINT_IDS)
+    if points.any():
+        out[points] = _wrap_array(out[points])
+    for k in np.flatnonzero(present & ~points):
+        out[k] = conform_geometry(out[k])
+    return out
+
+
+def _object_array(geoms: Any) -> np.ndarray:
+    """Copy geometries into a new object array (a GeoSeries without a Python loop)."""
+    values = getattr(geoms, "values", geoms)
+    if hasattr(values, "__array__"):
+        return np.array(np.asarray(values), dtype=object)
+    return np.array(list(values), dtype=object)
+
+
+def _round_geometries(geoms: np.ndarray) -> np.ndarray:
+    """Snap coordinates to the 1e-6 degree grid, keeping geometries valid.
+
+    :func:`shapely.set_precision` drops vertices that fall onto their
+    neighbour and parts that collapse, and may turn rings, so polygons are
+    oriented again; geometries that collapse entirely become ``None``.
+    """
+    out = np.array(geoms, dtype=object)
+    present = ~shapely.is_missing(out)
+    if not present.any():
+        return out
+    out[present] = shapely.set_precision(out[present], 10.0**-COORDINATE_DECIMALS)
+    present[present] = ~shapely.is_empty(out[present])
+    out[~present] = None
+    polygons = np.zeros(out.shape, dtype=bool)
+    polygons[present] = np.isin(shapely.get_type_id(out[present]), _POLYGON_IDS)
+    for k in np.flatnonzero(polygons):
+        out[k] = _orient_polygons(out[k])
+    return out
+
+
+def _lon_extent(west: np.ndarray, east: np.ndarray) -> tuple[float, float]:
+    """Smallest longitude range covering closed intervals on the circle.
+
+    ``west[k] <= east[k]`` in [-180, 180]; -180 and 180 are the same
+    meridian.  Returns ``(west, east)``, with ``west > east`` when the range
+    spans the antimeridian.
+    """
+    order = np.argsort(west, kind="stable")
+    west, east = west[order], east[order]
+    reach = np.maximum.accumulate(east)  # eastern end covered so far
+    gaps = west[1:] - reach[:-1]  # uncovered arc before interval k + 1 (if > 0)
+    wrap_gap = (west[0] + 180.0) + (180.0 - reach[-1])
+    if gaps.size == 0 or wrap_gap >= gaps.max():
+        return float(west[0]), float(reach[-1])
+    k = int(np.argmax(gaps))
+    return float(west[k + 1]), float(reach[k])
+
+
+def geojson_bbox(geoms: Iterable[BaseGeometry | None]) -> list[float] | None:
+    """Bounding box ``[west, south, east, north]`` of conformed geometries.
+
+    Parameters
+    ----------
+    geoms : iterable of shapely geometry or None
+        Geometries as returned by :func:`conform_geometry` (longitudes in
+        [-180, 180], cut at the antimeridian); ``None`` entries are skipped.
+
+    Returns
+    -------
+    list of float or None
+        Degrees.  The longitude range is the shortest arc that covers every
+        part, so a box across the antimeridian has ``west > east`` (RFC 7946
+        §5.2) and one covering all longitudes is ``-180 .. 180``.  ``None``
+        when there is no geometry.
+
+    Examples
+    --------
+    >>> from shapely import LineString
+    >>> cut = conform_geometry(LineString([(179.5, 10.0), (-179.5, 11.0)]))
+    >>> geojson_bbox([cut])
+    [179.5, 10.0, -179.5, 11.0]
+    """
+    array = _object_array(geoms)
+    array = array[~shapely.is_missing(array)]
+    array = array[~shapely.is_empty(array)]
+    if array.size == 0:
+        return None
+    points = shapely.get_type_id(array) == 0
+    xy = shapely.get_coordinates(array[points])  # a point is its own box
+    parts = shapely.get_parts(array[~points])
+    box = np.vstack([np.column_stack([xy, xy]), shapely.bounds(parts).reshape(-1, 4)])
+    west, east = _lon_extent(box[:, 0], box[:, 2])
+    return [west, float(box[:, 1].min()), east, float(box[:, 3].max())]
+
+
+def _number(value: float) -> str:
+    text = f"{value:.{COORDINATE_DECIMALS}f}".rstrip("0").rstrip(".")
+    return "0" if text in ("-0", "") else text
+
+
+def _positions(coords: Any) -> str:
+    xy = np.asarray(coords, dtype=float)[:, :2]
+    return "[" + ",".join(f"[{_number(x)},{_number(y)}]" for x, y in xy) + "]"
+
+
+def _geometry_json(geom: BaseGeometry | None) -> str:
+    """RFC 7946 geometry object text of an already conformed, rounded geometry."""
+    if geom is None:
+        return "null"
+    kind = geom.geom_type
+    if kind == "Point":
+        coordinates = _positions(geom.coords)[1:-1]
+    elif kind == "LineString":
+        coordinates = _positions(geom.coords)
+    elif kind == "Polygon":
+        coordinates = _rings(geom)
+    elif kind == "MultiPoint":
+        coordinates = "[" + ",".join(_positions(p.coords)[1:-1] for p in geom.geoms) + "]"
+    elif kind == "MultiLineString":
+        coordinates = "[" + ",".join(_positions(p.coords) for p in geom.geoms) + "]"
+    elif kind == "MultiPolygon":
+        coordinates = "[" + ",".join(_rings(p) for p in geom.geoms) + "]"
+    else:
+        raise TypeError(f"cannot write a {kind} as an RFC 7946 geometry")
+    return f'{{"type":"{kind}","coordinates":{coordinates}}}'
+
+
+def _rings(polygon: shapely.Polygon) -> str:
+    rings = [polygon.exterior, *polygon.interiors]
+    return "[" + ",".join(_positions(ring.coords) for ring in rings) + "]"
+
+
+def _scalar(value: Any) -> Any:
+    """One property value as a JSON-ready Python object."""
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if isinstance(value, bool | np.bool_):
+        return bool(value)
+    if isinstance(value, int | np.integer):
+        return int(value)
+    if isinstance(value, float | np.floating):
+        return float(value) if math.isfinite(value) else None
+    if isinstance(value, pd.Timestamp | np.datetime64):
+        stamp = pd.Timestamp(value)
+        if pd.isna(stamp):
+            return None
+        stamp = stamp.tz_localize("UTC") if stamp.tzinfo is None else stamp.tz_convert("UTC")
+        return format_time(pd.Series([stamp])).iloc[0]
+    if isinstance(value, str):
+        return value
+    return str(value)
+
+
+def property_values(series: pd.Series) -> list[Any]:
+    """Convert one column to JSON-ready values of one type.
+
+    Parameters
+    ----------
+    series : pandas.Series
+        A property column.
+
+    Returns
+    -------
+    list
+        One value per row: ``int`` for integer columns, ``float`` for float
+        columns (NaN and infinities as ``None``), ``bool`` for boolean
+        columns, ISO 8601 strings ending in ``Z`` for datetime columns
+        (naive times are taken as UTC), ``str`` otherwise; ``None`` where a
+        value is missing.
+
+    Examples
+    --------
+    >>> property_values(pd.Series([1.5, float("nan")]))
+    [1.5, None]
+    >>> property_values(pd.Series(pd.to_datetime(["2024-03-01T06:00:00Z"])))
+    ['2024-03-01T06:00:00Z']
+    """
+    dtype = series.dtype
+    missing = series.isna().to_numpy()
+    if pd.api.types.is_datetime64_any_dtype(dtype):
+        times = series if getattr(dtype, "tz", None) is not None else series.dt.tz_localize("UTC")
+        text = format_time(times.dt.tz_convert("UTC"))
+        return [None if gone else str(t) for t, gone in zip(text, missing, strict=True)]
+    if pd.api.types.is_bool_dtype(dtype) or pd.api.types.is_integer_dtype(dtype):
+        kind = bool if pd.api.types.is_bool_dtype(dtype) else int
+        if not missing.any():
+            return [kind(v) for v in series.to_numpy().tolist()]
+        return [None if gone else kind(v) for v, gone in zip(series, missing, strict=True)]
+    if pd.api.types.is_float_dtype(dtype):
+        values = series.to_numpy(dtype=float, na_value=np.nan)
+        out = values.astype(object)
+        out[~np.isfinite(values)] = None
+        return out.tolist()
+    if pd.api.types.is_string_dtype(dtype) and not pd.api.types.is_object_dtype(dtype):
+        out = series.to_numpy(dtype=object, na_value=None)
+        return [None if v is None else str(v) for v in out.tolist()]
+    return [_scalar(v) for v in series]
+
+
+def plain_data(value: Any) -> Any:
+    """Convert nested data to plain JSON data.
+
+    Parameters
+    ----------
+    value : object
+        Mappings, sequences and scalars (NumPy scalars, paths, timestamps).
+
+    Returns
+    -------
+    object
+        Dicts with string keys, lists, and JSON scalars; NaN becomes
+        ``None``, times ISO 8601 strings with ``Z``, paths strings.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> plain_data({"n": np.int64(3), "x": (np.float32(0.5), float("nan"))})
+    {'n': 3, 'x': [0.5, None]}
+    """
+    if isinstance(value, Mapping):
+        return {str(k): plain_data(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [plain_data(v) for v in value]
+    if isinstance(value, Path):
+        return str(value)
+    return _scalar(value)
+
+
+_ENCODER = json.JSONEncoder(ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+
+
+def _dumps(value: Any) -> str:
+    return _ENCODER.encode(value)
+
+
+_VALUE_TEXT = {
+    type(None): lambda v: "null",
+    bool: lambda v: "true" if v else "false",
+    int: int.__repr__,
+    float: float.__repr__,  # as the json module writes finite floats
+    str: encode_basestring,
+}
+
+
+def _member_texts(name: str, values: list[Any]) -> list[str]:
+    """``"name":value`` JSON texts of one property column (values from property_values)."""
+    key = encode_basestring(name) + ":"
+    return [key + _VALUE_TEXT[type(v)](v) for v in values]
+
+
+def _geometry_texts(geoms: np.ndarray) -> list[str]:
+    """Geometry object texts; points formatted in one pass over their coordinates."""
+    texts = ["null"] * len(geoms)
+    present = ~shapely.is_missing(geoms)
+    kinds = np.full(len(geoms), -1)
+    kinds[present] = shapely.get_type_id(geoms[present])
+    points = np.flatnonzero(kinds == 0)
+    if points.size:
+        xy = shapely.get_coordinates(geoms[points])
+        for k, x, y in zip(points, xy[:, 0], xy[:, 1], strict=True):
+            texts[k] = f'{{"type":"Point","coordinates":[{_number(x)},{_number(y)}]}}'
+    for k in np.flatnonzero(present & (kinds != 0)):
+        texts[k] = _geometry_json(geoms[k])
+    return texts
+
+
+def _bbox_json(box: list[float]) -> str:
+    return "[" + ",".join(_number(v) for v in box) + "]"
+
+
+def geojson_text(
+    layer: gpd.GeoDataFrame,
+    *,
+    name: str | None = None,
+    provenance: Mapping[str, Any] | None = None,
+) -> str:
+    """Serialise a layer as an RFC 7946 FeatureCollection.
+
+    Parameters
+    ----------
+    layer : geopandas.GeoDataFrame
+        Features in longitude/latitude degrees on WGS 84 (CRS EPSG:4326,
+        OGC:CRS84 or unset); every non-geometry column becomes a property,
+        in column order.
+    name : str, optional
+        Layer name, written as the foreign member ``"name"``.
+    provenance : mapping, optional
+        Written as the foreign member ``"driftloop"`` of the collection.
+
+    Returns
+    -------
+    str
+        The GeoJSON text: the collection members on the first line, then one
+        feature per line, ending with a newline.
+
+    Raises
+    ------
+    ValueError
+        If the layer has a CRS other than WGS 84 longitude/latitude.
+    """
+    crs = layer.crs
+    if crs is not None and crs.to_epsg() != 4326 and not crs.equals("OGC:CRS84"):
+        raise ValueError(f"RFC 7946 GeoJSON is WGS 84 longitude/latitude only, not {crs.name}")
+    geometry_name = layer.geometry.name
+    columns = [c for c in layer.columns if c != geometry_name]
+    values = [property_values(layer[c]) for c in columns]
+    geoms = _round_geometries(conform_geometries(layer.geometry))
+    texts = _geometry_texts(geoms)
+
+    head: list[str] = ['"type":"FeatureCollection"']
+    if name is not None:
+        head.append(f'"name":{_dumps(name)}')
+    if provenance is not None:
+        head.append(f'"driftloop":{_dumps(plain_data(provenance))}')
+    box = geojson_bbox(geoms)
+    if box is not None:
+        head.append(f'"bbox":{_bbox_json(box)}')
+
+    members = [_member_texts(str(c), v) for c, v in zip(columns, values, strict=True)]
+    if members:
+        props = ["{" + ",".join(row) + "}" for row in zip(*members, strict=True)]
+    else:
+        props = ["{}"] * len(geoms)
+    lines = [
+        f'{{"type":"Feature","properties":{p},"geometry":{g}}}'
+        for p, g in zip(props, texts, strict=True)
+    ]
+    present = ~shapely.is_missing(geoms)
+    kinds = np.full(len(geoms), -1)
+    kinds[present] = shapely.get_type_id(geoms[present])
+    for k in np.flatnonzero(present & ~np.isin(kinds, _POINT_IDS)):
+        box = _bbox_json(geojson_bbox([geoms[k]]))
+        lines[k] = (f'{{"type":"Feature","bbox":{box},"properties":{props[k]},'
+                    f'"geometry":{texts[k]}}}')
+    body = ",\n".join(lines)
+    features = f'"features":[\n{body}\n]' if lines else '"features":[]'
+    return "{" + ",".join(head) + "," + features + "}\n"
+
+
+def write_geojson(
+    path: str | Path,
+    layer: gpd.GeoDataFrame,
+    *,
+    name: str | None = None,
+    provenance: Mapping[str, Any] | None = None,
+) -> Path:
+    """Write a layer as an RFC 7946 GeoJSON file, atomically.
+
+    Parameters
+    ----------
+    path : str or Path
+        Destination file (``.geojson``).
+    layer : geopandas.GeoDataFrame
+        See :func:`geojson_text`.
+    name : str, optional
+        Layer name (foreign member ``"name"``).
+    provenance : mapping, optional
+        Run provenance (foreign member ``"driftloop"``).
+
+    Returns
+    -------
+    Path
+        The file written (UTF-8, Unix line ends).
+    """
+    text = geojson_text(layer, name=name, provenance=provenance)
+    with atomic_open(path, "wb") as handle:
+        handle.write(text.encode("utf-8"))
+    return Path(path)
