@@ -28,6 +28,13 @@ examples:
   driftloop analyse buoys.csv --columns id=buoy,time=obs_time --out runs/buoys
 """
 
+_EXAMPLES_SKILL = """\
+examples:
+  driftloop skill observed.csv model_runs.csv --out runs/skill
+  driftloop skill drifters/ model/ --windows 24,48,72 --restart 24 --out runs/skill
+  driftloop skill obs.nc leeway.csv --pair RUN7=ORV-A03 --tolerance 1 --out runs/skill
+"""
+
 _EXAMPLES_QC = """\
 examples:
   driftloop qc sample_tracks/orravane_a.csv --out runs/orravane-qc
@@ -97,6 +104,49 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     _add_input_options(qc)
+    skill = commands.add_parser(
+        "skill", help="score modelled tracks against drifter tracks",
+        description="Separation distance and the Liu-Weisberg normalised cumulative "
+        "Lagrangian separation skill score of modelled tracks against observed drifters, "
+        "for forecast windows restarting along the track.",
+        epilog=_EXAMPLES_SKILL + "\n" + CAUTION,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    skill.add_argument("observed", metavar="OBSERVED", help="observed track file or folder")
+    skill.add_argument(
+        "modelled", metavar="MODELLED",
+        help="modelled track file or folder; several runs per file start where time goes back",
+    )
+    skill.add_argument("--out", required=True, metavar="DIR", help="output folder")
+    skill.add_argument("--config", metavar="FILE.toml", help="TOML file overriding defaults")
+    skill.add_argument("--windows", metavar="H[,H...]",
+                       help="forecast window lengths in hours (default 24,48,72)")
+    skill.add_argument("--restart", type=float, metavar="H",
+                       help="hours between window starts (default: each window's length)")
+    skill.add_argument("--tolerance", type=float, metavar="N",
+                       help="tolerance n of the skill score (default 1)")
+    skill.add_argument("--start-time-tol", type=float, metavar="S",
+                       help="largest start-time offset of a modelled track (s, default 3600)")
+    skill.add_argument("--start-distance-tol", type=float, metavar="M",
+                       help="largest start-position offset of a modelled track (m, default 1000)")
+    skill.add_argument("--max-gap", type=float, metavar="H",
+                       help="longest gap between observed fixes in a scored window (h)")
+    skill.add_argument("--pair", metavar="MODEL_ID=OBS_ID[,...]",
+                       help="match modelled ids to drifter ids explicitly")
+    skill.add_argument("--no-observed-qc", action="store_true",
+                       help="score every observed fix, not only QC-usable ones")
+    skill.add_argument("--columns", metavar="ROLE=NAME[,...]",
+                       help="map roles id, time, date, lat, lon to column names")
+    skill.add_argument("--separator", choices=[",", ";", "tab"],
+                       help="field separator (default: sniffed)")
+    skill.add_argument("--drifter-id", metavar="ID",
+                       help="drifter id for files without an id column")
+    skill.add_argument("--no-land-test", action="store_true",
+                       help="skip the on-land and grounded tests of the observed QC")
+    skill.add_argument("--overwrite", action="store_true",
+                       help="write into a non-empty folder that is not a previous driftloop run")
+    skill.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    skill.add_argument("--debug", action="store_true", help="show tracebacks of errors")
     return parser
 
 
@@ -201,7 +251,58 @@ def _report_row_problems(fixes, strict: bool, quiet: bool) -> None:
               "see qc_reasons in fixes.csv", file=sys.stderr)
 
 
+def _parse_pairs(text: str | None) -> dict[str, str]:
+    pairs = {}
+    for item in (text or "").split(","):
+        if not item.strip():
+            continue
+        model, sep, observed = item.partition("=")
+        if not sep or not model.strip() or not observed.strip():
+            raise ConfigError(f"--pair: expected MODEL_ID=OBS_ID, got {item!r}")
+        pairs[model.strip()] = observed.strip()
+    return pairs
+
+
+def _run_skill(args: argparse.Namespace) -> int:
+    from driftloop.skill import run_skill
+
+    config = _make_config(args)
+    changes = {
+        key: value
+        for key, value in {
+            "windows_h": args.windows,
+            "restart_h": args.restart,
+            "tolerance_n": args.tolerance,
+            "start_time_tol_s": args.start_time_tol,
+            "start_distance_tol_m": args.start_distance_tol,
+            "max_gap_h": args.max_gap,
+        }.items()
+        if value is not None
+    }
+    if args.no_observed_qc:
+        changes["observed_qc"] = False
+    if changes:
+        config = config.replace("skill", **changes)
+    observed = _expand_inputs([args.observed])
+    modelled = _expand_inputs([args.modelled])
+    result = run_skill(
+        observed, modelled, args.out, config.skill, pairs=_parse_pairs(args.pair),
+        read_config=config.read, qc_config=config.qc, overwrite=args.overwrite,
+    )
+    if not args.quiet:
+        for label, stats in result.summary["windows"].items():
+            mean_ss = "n/a" if stats["mean_ss"] is None else f"{stats['mean_ss']:.3f}"
+            median_ss = "n/a" if stats["median_ss"] is None else f"{stats['median_ss']:.3f}"
+            print(f"{label} h windows: {stats['scored']} scored of {stats['scheduled']}, "
+                  f"mean skill {mean_ss}, median {median_ss}")
+        print("wrote " + ", ".join(str(p) for p in result.files))
+        print(CAUTION_SHORT)
+    return 0
+
+
 def _run(args: argparse.Namespace) -> int:
+    if args.command == "skill":
+        return _run_skill(args)
     from driftloop.pipeline import analyse
 
     config = _make_config(args)

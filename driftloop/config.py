@@ -19,6 +19,7 @@ Example TOML::
 from __future__ import annotations
 
 import dataclasses
+import math
 import tomllib
 import typing
 from dataclasses import dataclass, field, fields
@@ -27,7 +28,16 @@ from typing import Any
 
 from driftloop.errors import ConfigError
 
-__all__ = ["Config", "QCConfig", "ReadConfig", "load_config", "provenance"]
+__all__ = [
+    "Config",
+    "QCConfig",
+    "ReadConfig",
+    "ResampleConfig",
+    "SkillConfig",
+    "load_config",
+    "parse_windows",
+    "provenance",
+]
 
 
 @dataclass(frozen=True)
@@ -122,6 +132,172 @@ class QCConfig:
 
 
 @dataclass(frozen=True)
+class ResampleConfig:
+    """Resampling onto a uniform time grid (see :mod:`driftloop.resample`).
+
+    Attributes
+    ----------
+    step_h : float
+        Grid step (h); grid times are multiples of it since
+        1970-01-01T00:00Z, so the default puts every point on a whole UTC hour.
+    max_gap_h : float
+        Interval between usable fixes above which the track is split into
+        separate segments (h).  Shorter gaps are interpolated and marked.
+    flag_gap_h : float
+        Interval between fixes above which the grid points inside it are
+        marked ``in_gap`` with its length in ``gap_h`` (h).
+    min_segment_days : float
+        Segments whose first and last fixes are less than this apart are
+        dropped and reported (days).
+    interpolator : str
+        ``"spline"`` (not-a-knot cubic spline, loop-preserving) or ``"linear"``.
+    include_suspect : bool
+        Whether fixes with QC flag 3 (suspect) are used besides flag 1.
+    accel_m_s2 : float
+        Largest acceleration of real drifter motion (m/s2), used in the
+        interpolation error bound of ``sigma_m`` (same meaning as
+        ``qc.outlier_accel_m_s2``).
+    projection_radius_km : float
+        Largest distance of a fix from the centre of the local azimuthal
+        equidistant projection it is interpolated in (km); the scale error
+        stays below (r/R)^2 / 6, 9.3e-5 at 150 km.
+    projection_method : str
+        ``"conformal"`` (closed form, within 1.1 mm of PROJ's aeqd at 150 km,
+        faster) or ``"geodesic"`` (geodesic problems, PROJ's aeqd exactly).
+    """
+
+    step_h: float = 1.0
+    max_gap_h: float = 12.0
+    flag_gap_h: float = 3.0
+    min_segment_days: float = 3.0
+    interpolator: str = "spline"
+    include_suspect: bool = False
+    accel_m_s2: float = 2.0e-4
+    projection_radius_km: float = 150.0
+    projection_method: str = "conformal"
+
+    def __post_init__(self) -> None:
+        """Refuse values that cannot work, naming the key."""
+        choices = {"interpolator": ("spline", "linear"),
+                   "projection_method": ("conformal", "geodesic")}
+        for name, allowed in choices.items():
+            if getattr(self, name) not in allowed:
+                raise ConfigError(f"key 'resample.{name}' must be one of "
+                                  f"{', '.join(allowed)}, got {getattr(self, name)!r}")
+        for name in ("step_h", "max_gap_h", "projection_radius_km"):
+            value = getattr(self, name)
+            if isinstance(value, int | float) and not value > 0:
+                raise ConfigError(f"key 'resample.{name}' must be > 0, got {value!r}")
+        for name in ("flag_gap_h", "min_segment_days", "accel_m_s2"):
+            value = getattr(self, name)
+            if isinstance(value, int | float) and not value >= 0:
+                raise ConfigError(f"key 'resample.{name}' must be >= 0, got {value!r}")
+
+
+def parse_windows(text: str) -> tuple[float, ...]:
+    """Parse a comma-separated list of window lengths in hours.
+
+    Parameters
+    ----------
+    text : str
+        E.g. ``"24,48,72"``; spaces are allowed.
+
+    Returns
+    -------
+    tuple of float
+        The window lengths (h), sorted, without repeats.
+
+    Raises
+    ------
+    ConfigError
+        If an item is not a positive finite number, or the list is empty.
+
+    Examples
+    --------
+    >>> parse_windows("72, 24,48")
+    (24.0, 48.0, 72.0)
+    """
+    items = [item.strip() for item in str(text).split(",")]
+    if not items or all(not item for item in items):
+        raise ConfigError("skill.windows_h: give at least one window length in hours, "
+                          "e.g. \"24,48,72\"")
+    values = []
+    for item in items:
+        try:
+            value = float(item)
+        except ValueError:
+            raise ConfigError(f"skill.windows_h: {item!r} is not a number of hours; "
+                              "expected e.g. \"24,48,72\"") from None
+        if not math.isfinite(value) or value <= 0:
+            raise ConfigError(f"skill.windows_h: window lengths must be positive hours, "
+                              f"got {item!r}")
+        values.append(value)
+    return tuple(sorted(set(values)))
+
+
+@dataclass(frozen=True)
+class SkillConfig:
+    """How modelled tracks are scored against observed ones (see :mod:`driftloop.skill`).
+
+    Attributes
+    ----------
+    tolerance_n : float
+        Tolerance n of the skill score (dimensionless, > 0): ss = 1 - s/n
+        for s <= n, else 0.  Liu & Weisberg (2011) used 1 (from memory).
+    windows_h : str
+        Forecast window lengths (h), comma-separated, e.g. ``"24,48,72"``.
+    restart_h : float or None
+        Interval between the starts of successive windows (h); ``None``
+        uses each window's own length (back-to-back windows).
+    start_time_tol_s : float
+        Largest time between a modelled track's start and the nearest
+        usable observed fix (s); also how much earlier than a window's end
+        the observed and modelled tracks may end.
+    start_distance_tol_m : float
+        Largest distance between a modelled track's start and the observed
+        position at that time (m).
+    max_gap_h : float
+        Longest interval between observed fixes inside a scored window (h).
+    run_separator : str
+        Separator between a drifter id and a run label in modelled track
+        ids: ``ORV-A01@day3`` belongs to drifter ``ORV-A01``.
+    observed_qc : bool
+        Whether to run driftloop's quality control on the observed fixes and
+        score only usable ones (flag pass or suspect).
+    """
+
+    tolerance_n: float = 1.0
+    windows_h: str = "24,48,72"
+    restart_h: float | None = None
+    start_time_tol_s: float = 3600.0
+    start_distance_tol_m: float = 1000.0
+    max_gap_h: float = 6.0
+    run_separator: str = "@"
+    observed_qc: bool = True
+
+    def __post_init__(self) -> None:
+        parse_windows(self.windows_h)
+        positive = {
+            "tolerance_n": self.tolerance_n,
+            "start_time_tol_s": self.start_time_tol_s,
+            "start_distance_tol_m": self.start_distance_tol_m,
+            "max_gap_h": self.max_gap_h,
+        }
+        if self.restart_h is not None:
+            positive["restart_h"] = self.restart_h
+        for key, value in positive.items():
+            if not isinstance(value, int | float) or not math.isfinite(value) or value <= 0:
+                raise ConfigError(f"skill.{key} must be a positive number, got {value!r}")
+        if not self.run_separator:
+            raise ConfigError("skill.run_separator must not be empty")
+
+    @property
+    def windows(self) -> tuple[float, ...]:
+        """Window lengths (h), parsed from :attr:`windows_h`."""
+        return parse_windows(self.windows_h)
+
+
+@dataclass(frozen=True)
 class Config:
     """Configuration of a whole run: one section per stage.
 
@@ -131,10 +307,16 @@ class Config:
         Reader options.
     qc : QCConfig
         Quality-control thresholds.
+    skill : SkillConfig
+        Model-vs-drifter trajectory skill.
+    resample : ResampleConfig
+        Resampling onto a uniform time grid.
     """
 
     read: ReadConfig = field(default_factory=ReadConfig)
     qc: QCConfig = field(default_factory=QCConfig)
+    skill: SkillConfig = field(default_factory=SkillConfig)
+    resample: ResampleConfig = field(default_factory=ResampleConfig)
 
     def replace(self, section: str, **changes: Any) -> Config:
         """Return a copy with fields of one section changed.
