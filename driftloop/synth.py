@@ -8,7 +8,14 @@ A release is a set of drogued surface drifters whose velocity is the sum of
    1970), which rings at the local inertial frequency after every passing
    storm and decays with damping time 1/r;
 3. for drifters caught in a **mesoscale eddy**, the azimuthal swirl of a
-   Gaussian vortex while they are trapped.
+   Gaussian vortex while they are trapped;
+4. optionally, a **barotropic tidal current** (M2, S2, K1, O1 ellipses,
+   :class:`TidalCurrent`).
+
+Drifters named in ``quiet_drifters`` feel no wind, so they carry no
+inertial motion: a control for false detections.  Releases work in either
+hemisphere (f < 0 in the south turns free inertial motion anticlockwise)
+and eddies of either spin can be put in either.
 
 Positions are integrated on the WGS 84 ellipsoid and then sampled roughly
 hourly, the way a field file records them: jittered fix times, lost fixes,
@@ -20,7 +27,10 @@ scored against it.
 :func:`simulate_release` runs a :class:`ReleaseScenario`;
 :func:`simulate_many` builds and runs a randomised scenario of many drifters
 for benchmarks; :func:`write_fixes_csv` and :func:`write_truth_csv` save the
-two tables.
+two tables.  :func:`truth_events` lists the inertial, eddy and tidal events
+a loop detector should find, and :func:`evaluation_release` builds the
+multi-site, two-hemisphere release that loop detection is scored on
+(``benchmarks/eval_loops.py``, :mod:`driftloop.evaluation`).
 
 Method
 ------
@@ -77,6 +87,14 @@ cm/s, from memory).  The centre moves with the same velocity less the swirl
 the drifter turns on a circle of radius rho_0 (to a few tenths of a percent)
 at angular velocity w omega(rho_0).
 
+A tidal current u + i v = e^{i theta} (a cos psi + i b sin psi),
+psi = omega t - phi, is the sum of an anticlockwise and a clockwise
+rotary component, ((a + b)/2) e^{i(theta - phi)} e^{i omega t} +
+((a - b)/2) e^{i(theta + phi)} e^{-i omega t} (Gonella 1972, from memory for
+the notation); its displacement over a step is integrated exactly.  It is
+uniform on the scale of the excursions, so it carries an eddy centre as it
+carries the drifter.
+
 References
 ----------
 Pollard, R. T., and R. C. Millard, 1970: Comparison between observed and
@@ -91,6 +109,13 @@ J. Phys. Oceanogr., 15 (venue from memory).
 NGA.STND.0036, 2014: World Geodetic System 1984, v1.0.0.
 
 AMS Glossary of Meteorology: "inertial oscillation".
+
+Gonella, J., 1972: A rotary-component method for analysing meteorological
+and oceanographic vector time series.  Deep-Sea Res., 19, 833-846.
+
+Lilly, J. M., and J.-C. Gascard, 2006: Wavelet ridge diagnosis of
+time-varying elliptical signals with application to an oceanic eddy.
+Nonlin. Processes Geophys., 13, 467-483.
 """
 
 from __future__ import annotations
@@ -107,23 +132,31 @@ import pandas as pd
 from driftloop.constants import (
     AIR_DENSITY_KG_M3,
     SEAWATER_DENSITY_KG_M3,
+    TIDAL_PERIODS_H,
     WGS84_A_M,
     WGS84_E2,
 )
 from driftloop.physics import coriolis_parameter
 
 __all__ = [
+    "EVALUATION_SITES",
     "FIELD_CSV_COLUMNS",
+    "TIDE_TRUTH_COLUMNS",
     "TRUTH_COLUMNS",
+    "TRUTH_EVENT_COLUMNS",
     "DuplicateFix",
     "EddyEncounter",
+    "EvaluationRelease",
     "FixGap",
     "PositionSpike",
     "ReleaseScenario",
     "SyntheticRelease",
+    "TidalCurrent",
     "coriolis_parameter",
+    "evaluation_release",
     "simulate_many",
     "simulate_release",
+    "truth_events",
     "write_fixes_csv",
     "write_truth_csv",
 ]
@@ -151,6 +184,28 @@ TRUTH_COLUMNS = (
     "eddy_lon",
     "tau_east_pa",
     "tau_north_pa",
+)
+
+#: Extra columns of :attr:`SyntheticRelease.truth` when the scenario has tides:
+#: the barotropic tidal current at the drifter (east, north; m/s).
+TIDE_TRUTH_COLUMNS = ("u_tide_m_s", "v_tide_m_s")
+
+#: Columns of the truth-event table returned by :func:`truth_events`.
+TRUTH_EVENT_COLUMNS = (
+    "drifter_id",
+    "kind",
+    "start",
+    "end",
+    "period_h",
+    "radius_km",
+    "speed_m_s",
+    "spin",
+    "lat",
+    "lon",
+    "cycles",
+    "constituent",
+    "ellipse_ratio",
+    "orientation_deg",
 )
 
 _DAY_S = 86400.0
@@ -275,6 +330,56 @@ class DuplicateFix:
     day: float
 
 
+@dataclass(frozen=True)
+class TidalCurrent:
+    """A barotropic tidal current felt by one drifter (one constituent).
+
+    The current traces the ellipse
+
+        u + i v = e^{i theta} (a cos psi + i b sin psi),   psi = omega t - phi,
+
+    with a the semi-major speed, b = ``ellipse_ratio`` a the signed
+    semi-minor speed, theta the orientation of the major axis and phi the
+    phase; t is time after the scenario's ``start_utc``.  With b > 0 the
+    current vector turns anticlockwise, with b < 0 clockwise (as in the
+    ellipse parameters of Lilly & Gascard 2006).  omega = 2 pi / T with T
+    the constituent period from :data:`driftloop.constants.TIDAL_PERIODS_H`
+    (NOAA CO-OPS constituent speeds).  The current is uniform on the scale
+    of a drifter's excursion (barotropic, far from the coast), so it also
+    carries an eddy centre.  A drifter riding it alone traces an ellipse of
+    semi-axes a / omega and |b| / omega.
+
+    Attributes
+    ----------
+    drifter_id : str
+        The drifter.
+    constituent : str
+        ``"M2"``, ``"S2"``, ``"K1"`` or ``"O1"``.
+    amplitude_m_s : float
+        Semi-major axis of the current ellipse, a (m/s).
+    ellipse_ratio : float
+        Semi-minor over semi-major axis, signed: > 0 anticlockwise,
+        < 0 clockwise, 0 rectilinear; within [-1, 1].
+    orientation_deg : float
+        Direction of the major axis, degrees anticlockwise from east.
+    phase_deg : float
+        Phase phi (degrees): the current points along the major axis
+        (direction ``orientation_deg``) at t = phi / omega.
+    """
+
+    drifter_id: str
+    constituent: str = "M2"
+    amplitude_m_s: float = 0.1
+    ellipse_ratio: float = 0.0
+    orientation_deg: float = 0.0
+    phase_deg: float = 0.0
+
+    @property
+    def period_s(self) -> float:
+        """Period of the constituent (s)."""
+        return TIDAL_PERIODS_H[self.constituent] * _HOUR_S
+
+
 def _tuple(values, kind=float) -> tuple:
     return tuple(kind(v) for v in values)
 
@@ -367,6 +472,14 @@ class ReleaseScenario:
     gaps, spikes, duplicates : tuple
         Corruptions: :class:`FixGap`, :class:`PositionSpike`,
         :class:`DuplicateFix`.
+    tides : tuple of TidalCurrent
+        Barotropic tidal currents, any number per drifter.  With tides the
+        truth table has the extra columns :data:`TIDE_TRUTH_COLUMNS`.
+    quiet_drifters : tuple of str
+        Drifters under a calm patch: the wind (background and storms) does
+        not reach them and their slab velocity starts at zero, so they move
+        with the background current (and any eddy or tide) alone.  Their
+        truth ``tau_*`` and ``u_/v_slab_m_s`` are zero.
     """
 
     name: str
@@ -407,6 +520,8 @@ class ReleaseScenario:
     gaps: tuple[FixGap, ...] = ()
     spikes: tuple[PositionSpike, ...] = ()
     duplicates: tuple[DuplicateFix, ...] = ()
+    tides: tuple[TidalCurrent, ...] = ()
+    quiet_drifters: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         set_ = object.__setattr__
@@ -415,8 +530,9 @@ class ReleaseScenario:
         set_(self, "deploy_lon_deg", _tuple(self.deploy_lon_deg))
         if self.deploy_after_start_h is not None:
             set_(self, "deploy_after_start_h", _tuple(self.deploy_after_start_h))
-        for name in ("eddies", "gaps", "spikes", "duplicates"):
+        for name in ("eddies", "gaps", "spikes", "duplicates", "tides"):
             set_(self, name, tuple(getattr(self, name)))
+        set_(self, "quiet_drifters", _tuple(self.quiet_drifters, str))
         set_(self, "storm_duration_h", _tuple(self.storm_duration_h))
         set_(self, "storm_peak_wind_m_s", _tuple(self.storm_peak_wind_m_s))
         self._validate()
@@ -461,10 +577,21 @@ class ReleaseScenario:
             raise ValueError("fix_loss_probability must be in [0, 1)")
         known = set(self.drifter_ids)
         trapped = set()
-        for spec in (*self.eddies, *self.gaps, *self.spikes, *self.duplicates):
+        for spec in (*self.eddies, *self.gaps, *self.spikes, *self.duplicates, *self.tides):
             if spec.drifter_id not in known:
                 raise ValueError(f"{type(spec).__name__} names unknown drifter "
                                  f"{spec.drifter_id!r}")
+        unknown = sorted(set(self.quiet_drifters) - known)
+        if unknown:
+            raise ValueError(f"quiet_drifters names unknown drifter(s) {unknown}")
+        for tide in self.tides:
+            if tide.constituent not in TIDAL_PERIODS_H:
+                raise ValueError(f"tide of {tide.drifter_id!r}: constituent must be one of "
+                                 f"{sorted(TIDAL_PERIODS_H)}, got {tide.constituent!r}")
+            if not (tide.amplitude_m_s >= 0 and abs(tide.ellipse_ratio) <= 1 and
+                    math.isfinite(tide.orientation_deg) and math.isfinite(tide.phase_deg)):
+                raise ValueError(f"tide of {tide.drifter_id!r}: need amplitude_m_s >= 0, "
+                                 "|ellipse_ratio| <= 1 and finite angles")
         for eddy in self.eddies:
             if eddy.drifter_id in trapped:
                 raise ValueError(f"drifter {eddy.drifter_id!r} has more than one eddy")
@@ -518,10 +645,12 @@ class SyntheticRelease:
           ``u_/v_slab_m_s``: slab mixed-layer velocity (inertial
           oscillation plus directly wind-driven drift);
           ``u_/v_eddy_m_s``: eddy swirl; east and north components (m/s),
-          summing to the drifter velocity;
+          summing to the drifter velocity (with the tide, if any);
         - ``eddy_weight``: 0 outside an eddy, 1 fully trapped;
         - ``eddy_lat``, ``eddy_lon``: eddy centre while the weight is > 0;
-        - ``tau_east_pa``, ``tau_north_pa``: wind stress (Pa).
+        - ``tau_east_pa``, ``tau_north_pa``: wind stress (Pa);
+        - only when the scenario has tides, :data:`TIDE_TRUTH_COLUMNS`
+          ``u_/v_tide_m_s``: the tidal current (m/s).
     storms : pandas.DataFrame
         One row per storm: ``onset`` (UTC, at the reference longitude),
         ``duration_h``, ``peak_wind_m_s``, ``toward_start_deg``,
@@ -729,19 +858,95 @@ def _swirl(ed: _Eddies, off: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return 1j * omega * off, omega * (2.0 - q)
 
 
-def _advance(ph, deploy_t, ed, window, t, h, lat, lon, z, clat, clon):
+class _Extras(NamedTuple):
+    """Tides and wind factors at the positions of the state arrays."""
+
+    n: int  # number of positions
+    tide_pos: np.ndarray  # position of each tide term
+    tide_omega: np.ndarray  # (rad/s)
+    tide_ap: np.ndarray  # complex coefficient of e^{+i omega t} (m/s)
+    tide_am: np.ndarray  # complex coefficient of e^{-i omega t} (m/s)
+    wind: np.ndarray | None  # 1.0 where the wind acts, 0.0 for quiet drifters
+
+    @property
+    def has_tides(self) -> bool:
+        return self.tide_pos.size > 0
+
+
+def _extra_spec(sc: ReleaseScenario) -> dict[str, np.ndarray] | None:
+    """Per-drifter tide terms and quiet flags of a scenario; ``None`` if it has neither."""
+    if not sc.tides and not sc.quiet_drifters:
+        return None
+    index = {d: i for i, d in enumerate(sc.drifter_ids)}
+    a = np.array([t.amplitude_m_s for t in sc.tides], dtype=float)
+    b = a * np.array([t.ellipse_ratio for t in sc.tides], dtype=float)
+    theta = np.array([t.orientation_deg for t in sc.tides], dtype=float) * _DEG
+    phi = np.array([t.phase_deg for t in sc.tides], dtype=float) * _DEG
+    calm = np.zeros(sc.drifter_count, dtype=bool)
+    calm[[index[q] for q in sc.quiet_drifters]] = True
+    return {
+        "drifter": np.array([index[t.drifter_id] for t in sc.tides], dtype=np.int64),
+        "omega": np.array([2.0 * math.pi / t.period_s for t in sc.tides], dtype=float),
+        # e^{i theta} (a cos psi + i b sin psi) = ap e^{i omega t} + am e^{-i omega t}
+        "ap": 0.5 * (a + b) * np.exp(1j * (theta - phi)),
+        "am": 0.5 * (a - b) * np.exp(1j * (theta + phi)),
+        "calm": calm,
+    }
+
+
+def _extras_at(spec: dict[str, np.ndarray] | None, drifters: np.ndarray) -> _Extras | None:
+    """Tides and wind factors for state arrays holding the given drifters."""
+    if spec is None:
+        return None
+    pos, k = np.nonzero(drifters[:, None] == spec["drifter"][None, :])
+    wind = None
+    if spec["calm"].any():
+        wind = np.where(spec["calm"][drifters], 0.0, 1.0)
+    return _Extras(int(drifters.size), pos, spec["omega"][k], spec["ap"][k], spec["am"][k],
+                   wind)
+
+
+def _sum_terms(ex: _Extras, terms: np.ndarray) -> np.ndarray:
+    """Add complex tide terms into their positions."""
+    re = np.bincount(ex.tide_pos, weights=terms.real, minlength=ex.n)
+    im = np.bincount(ex.tide_pos, weights=terms.imag, minlength=ex.n)
+    return re + 1j * im
+
+
+def _tide_velocity(ex: _Extras, t) -> np.ndarray:
+    """Tidal current (complex m/s) at each position at time ``t`` (s after the start)."""
+    e = np.exp(1j * ex.tide_omega * _pick(t, ex.tide_pos))
+    return _sum_terms(ex, ex.tide_ap * e + ex.tide_am * np.conj(e))
+
+
+def _tide_step(ex: _Extras, t, h) -> tuple[np.ndarray, np.ndarray]:
+    """Tidal current at ``t`` (complex m/s) and its exact integral over ``[t, t + h]`` (m)."""
+    t0 = _pick(t, ex.tide_pos)
+    iw = 1j * ex.tide_omega
+    e0 = np.exp(iw * t0)
+    e1 = np.exp(iw * (t0 + _pick(h, ex.tide_pos)))
+    vel = ex.tide_ap * e0 + ex.tide_am * np.conj(e0)
+    disp = (ex.tide_ap * (e1 - e0) - ex.tide_am * (np.conj(e1) - np.conj(e0))) / iw
+    return _sum_terms(ex, vel), _sum_terms(ex, disp)
+
+
+def _advance(ph, deploy_t, ed, window, t, h, lat, lon, z, clat, clon, extra=None):
     """Advance the drifters from time ``t`` by ``h`` seconds (scalars or per drifter).
 
     Returns the new latitude, longitude, slab velocity and eddy-centre
     position (the centre arrays are changed only where an eddy acts).
     Drifters not yet deployed keep their position.  Forcing, f and the
-    advecting velocity are evaluated at mid-step (predicted) positions.
+    advecting velocity are evaluated at mid-step (predicted) positions;
+    the tidal current, if any, is integrated exactly over the step.
     """
     tm = t + 0.5 * h
     moving = deploy_t <= t
     moving = 1.0 if moving.all() else moving.astype(float)
     m, n = _radii(np.sin(lat * _DEG) ** 2)
     trapped = _trapped(ed, tm, window)
+    tides = extra is not None and extra.has_tides
+    if tides:
+        tide0, tide_disp = _tide_step(extra, t, h)
     # predictor: half a step with the start-of-step velocity
     vel0 = _background(ph, t, lat, lon)
     if trapped is not None:
@@ -751,9 +956,11 @@ def _advance(ph, deploy_t, ed, window, t, h, lat, lon, z, clat, clon):
         swirl0, _ = _swirl(e, _offset(clat[tr], clon[tr], lat[tr], lon[tr]))
         vel0[tr] = (1.0 - w) * vel0[tr] + w * (e.prop + swirl0)
         # the centre moves with the drifter less the swirl: a circular orbit
-        clat_h, clon_h = _move(clat[tr], clon[tr],
-                               0.5 * h_tr * (vel0[tr] - w * swirl0 + z[tr]))
-    half = 0.5 * h * moving * (vel0 + z)
+        drive0 = vel0[tr] - w * swirl0 + z[tr]
+        if tides:
+            drive0 = drive0 + tide0[tr]
+        clat_h, clon_h = _move(clat[tr], clon[tr], 0.5 * h_tr * drive0)
+    half = 0.5 * h * moving * ((vel0 + z + tide0) if tides else (vel0 + z))
     lat_h = lat + half.imag / m / _DEG
     lon_h = lon + half.real / (n * np.cos(lat * _DEG)) / _DEG
     x_h = _local_x(ph, lon_h)
@@ -765,20 +972,30 @@ def _advance(ph, deploy_t, ed, window, t, h, lat, lon, z, clat, clon):
         f[tr] += e.shift * w * 0.5 * zeta
     # slab mixed layer: exact over the step for mid-step forcing and f
     forcing = _stress(ph, window, tm, lon_h, x_h) / ph.rho_h
+    if extra is not None and extra.wind is not None:
+        forcing = forcing * extra.wind
     x = (ph.r + 1j * f) * h
     ex, phi1, phi2 = _phi12(x)
     z_new = z * ex + forcing * h * phi1
     slab_disp = z * h * phi1 + forcing * h * h * phi2
     if trapped is not None:
         clat, clon = clat.copy(), clon.copy()
-        clat[tr], clon[tr] = _move(clat[tr], clon[tr],
-                                   (vel[tr] - w * swirl) * h_tr + slab_disp[tr])
-    lat_new, lon_new = _move(lat, lon, moving * (vel * h + slab_disp), m)
+        centre_disp = (vel[tr] - w * swirl) * h_tr + slab_disp[tr]
+        if tides:
+            centre_disp = centre_disp + tide_disp[tr]
+        clat[tr], clon[tr] = _move(clat[tr], clon[tr], centre_disp)
+    disp = vel * h + slab_disp
+    if tides:
+        disp = disp + tide_disp
+    lat_new, lon_new = _move(lat, lon, moving * disp, m)
     return lat_new, lon_new, z_new, clat, clon
 
 
-def _components(ph, ed, window, t, lat, lon, z, clat, clon):
-    """Velocity components (complex m/s), eddy weight and stress at a time and place."""
+def _components(ph, ed, window, t, lat, lon, z, clat, clon, extra=None):
+    """Velocity components (complex m/s), eddy weight, stress and tide at a time and place.
+
+    The tide is ``None`` when there is none.
+    """
     mean = _background(ph, t, lat, lon)
     eddy = np.zeros_like(mean)
     weight = np.zeros(mean.shape)
@@ -791,7 +1008,13 @@ def _components(ph, ed, window, t, lat, lon, z, clat, clon):
         eddy[tr] = w * swirl
         weight[tr] = w
     tau = _stress(ph, window, t, lon)
-    return mean, z, eddy, weight, tau
+    tide = None
+    if extra is not None:
+        if extra.wind is not None:
+            tau = tau * extra.wind
+        if extra.has_tides:
+            tide = _tide_velocity(extra, t)
+    return mean, z, eddy, weight, tau, tide
 
 
 # ---------------------------------------------------------------------------
@@ -926,17 +1149,23 @@ def _run(sc: ReleaseScenario, seed: int, record_truth: bool):
     eddies, eddy_row, capture = _eddy_params(sc, deploy_t, step, t_begin)
     capture_step = np.rint((eddies.start - t_begin) / step).astype(np.int64)
     d_fix, t_fix = _schedule(sc, rng, deploy_t, t_end)
+    extra_spec = _extra_spec(sc)
+    extra = _extras_at(extra_spec, np.arange(n))
 
     lat = np.asarray(sc.deploy_lat_deg, dtype=float).copy()
     lon = _wrap(np.asarray(sc.deploy_lon_deg, dtype=float))
     z = np.full(n, complex(_compass(sc.initial_slab_speed_m_s, sc.initial_slab_toward_deg)))
+    if extra is not None and extra.wind is not None:
+        z = z * extra.wind
     clat = np.full(n, np.nan)
     clon = np.full(n, np.nan)
 
     total = t_fix.size
     rec = {"lat": np.empty(total), "lon": np.empty(total)}
     if record_truth:
-        for key in ("mean", "slab", "eddy", "tau"):
+        keys = ("mean", "slab", "eddy", "tau", "tide") if sc.tides else (
+            "mean", "slab", "eddy", "tau")
+        for key in keys:
             rec[key] = np.empty(total, dtype=complex)
         for key in ("w", "clat", "clon"):
             rec[key] = np.empty(total)
@@ -965,16 +1194,16 @@ def _run(sc: ReleaseScenario, seed: int, record_truth: bool):
             sel = order[lo:hi]
             if sel.size:
                 _sample(ph, eddies, eddy_row, deploy_t, t_begin, step, first, buf, sel,
-                        d_fix, t_fix, rec, record_truth)
+                        d_fix, t_fix, rec, record_truth, extra_spec)
             first = i + 1
         if i < n_steps - 1:
             lat, lon, z, clat, clon = _advance(ph, deploy_t, eddies, (t, t + step), t, step,
-                                               lat, lon, z, clat, clon)
+                                               lat, lon, z, clat, clon, extra)
     return rng, ph, storms, d_fix, t_fix, rec
 
 
 def _sample(ph, eddies, eddy_row, deploy_t, t_begin, step, first, buf, sel, d_fix, t_fix,
-            rec, record_truth) -> None:
+            rec, record_truth, extra_spec=None) -> None:
     """Advance the stored step states to the fix times ``sel`` and record them."""
     d = d_fix[sel]
     tf = t_fix[sel]
@@ -983,12 +1212,16 @@ def _sample(ph, eddies, eddy_row, deploy_t, t_begin, step, first, buf, sel, d_fi
     t0 = t_begin + s * step
     window = (float(t0.min()), float(tf.max()))
     ed = eddies.for_drifters(eddy_row, d)
+    extra = _extras_at(extra_spec, d)
     state = [buf[key][row, d] for key in ("lat", "lon", "z", "clat", "clon")]
-    la, lo, zz, cla, clo = _advance(ph, deploy_t[d], ed, window, t0, tf - t0, *state)
+    la, lo, zz, cla, clo = _advance(ph, deploy_t[d], ed, window, t0, tf - t0, *state, extra)
     rec["lat"][sel] = la
     rec["lon"][sel] = lo
     if record_truth:
-        mean, slab, eddy, w, tau = _components(ph, ed, window, tf, la, lo, zz, cla, clo)
+        mean, slab, eddy, w, tau, tide = _components(ph, ed, window, tf, la, lo, zz, cla, clo,
+                                                     extra)
+        if tide is not None:
+            rec["tide"][sel] = tide
         rec["mean"][sel] = mean
         rec["slab"][sel] = slab
         rec["eddy"][sel] = eddy
@@ -1120,7 +1353,8 @@ def _assemble(sc: ReleaseScenario, seed: int, rng, storms, ph, d_flat, t_flat, r
     })
 
     if not record_truth:
-        truth = pd.DataFrame(columns=list(TRUTH_COLUMNS))
+        extra_columns = list(TIDE_TRUTH_COLUMNS) if sc.tides else []
+        truth = pd.DataFrame(columns=list(TRUTH_COLUMNS) + extra_columns)
         return SyntheticRelease(sc, seed, fixes, truth, storm_table)
 
     labels = np.array(["none", "missing", "gap", "spike"], dtype=object)
@@ -1157,6 +1391,10 @@ def _assemble(sc: ReleaseScenario, seed: int, rng, storms, ph, d_flat, t_flat, r
         "tau_east_pa": tau.real,
         "tau_north_pa": tau.imag,
     })
+    if sc.tides:
+        tide = col("tide")
+        truth["u_tide_m_s"] = tide.real
+        truth["v_tide_m_s"] = tide.imag
     return SyntheticRelease(sc, seed, fixes, truth, storm_table)
 
 
@@ -1305,6 +1543,566 @@ def simulate_many(n_drifters: int, days: float, seed: int, *, centre_lat_deg: fl
     return simulate_release(scenario, seed, truth=truth)
 
 
+# ---------------------------------------------------------------------------
+# ground-truth events
+# ---------------------------------------------------------------------------
+
+
+def _cumtrapz(values: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Cumulative trapezoidal integral of ``values`` over ``t``, starting at 0."""
+    out = np.zeros(values.shape, dtype=values.dtype)
+    out[1:] = np.cumsum(0.5 * (values[1:] + values[:-1]) * np.diff(t))
+    return out
+
+
+def _window_mean(cum: np.ndarray, t: np.ndarray, half: np.ndarray) -> np.ndarray:
+    """Mean over ``[t - half, t + half]`` (clipped to the record) from a cumulative integral."""
+    lo = np.maximum(t - half, t[0])
+    hi = np.minimum(t + half, t[-1])
+    width = np.maximum(hi - lo, 1e-9)
+
+    def at(x: np.ndarray) -> np.ndarray:
+        # the cumulative integral is piecewise quadratic; linear interpolation
+        # between fixes an hour apart is exact to the order that matters here
+        value = np.interp(x, t, cum.real)
+        return value + 1j * np.interp(x, t, cum.imag) if np.iscomplexobj(cum) else value
+
+    return (at(hi) - at(lo)) / width
+
+
+def _eddy_vorticity(eddy: EddyEncounter, hemisphere: float, off: np.ndarray) -> np.ndarray:
+    """Relative vorticity (1/s) of the Gaussian vortex at offsets ``off`` (m) from its centre."""
+    rr = eddy.orbit_radius_km * 1e3
+    core = eddy.core_radius_km * 1e3
+    turn = 1.0 if eddy.spin == "cyclonic" else -1.0
+    omega_orbit = 2.0 * math.pi / (eddy.orbit_period_days * _DAY_S)
+    omega0 = turn * hemisphere * omega_orbit * math.exp(0.5 * (rr / core) ** 2)
+    q = (off.real ** 2 + off.imag ** 2) / (core * core)
+    return omega0 * np.exp(-0.5 * q) * (2.0 - q)
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """Inclusive index ranges of the runs of True in a boolean array."""
+    edges = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    return list(zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1, strict=True))
+
+
+def _spin_of_rotation(anticlockwise: bool, lat: float) -> str:
+    """``"cyclonic"`` for rotation with the Earth (anticlockwise north, clockwise south)."""
+    return "cyclonic" if anticlockwise == (lat > 0) else "anticyclonic"
+
+
+def _event(drifter_id, kind, t0, t1, period_s, radius_m, speed, spin, lat, lon, cycles,
+           constituent=None, ratio=math.nan, orientation=math.nan) -> dict:
+    return {"drifter_id": drifter_id, "kind": kind, "start": t0, "end": t1,
+            "period_h": period_s / _HOUR_S, "radius_km": radius_m / 1e3, "speed_m_s": speed,
+            "spin": spin, "lat": lat, "lon": lon, "cycles": cycles, "constituent": constituent,
+            "ellipse_ratio": ratio, "orientation_deg": orientation}
+
+
+def _ringing(drifter_id, times, t, lat, lon, z, f, inside, threshold, min_cycles,
+             merge_cycles):
+    """Inertial-ringing events of one drifter from its slab velocity (see :func:`truth_events`).
+
+    ``inside`` marks the fixes where the drifter counts as trapped in an
+    eddy; events are split where it changes.
+    """
+    phase = _cumtrapz(f, t)
+    # complex demodulation: free inertial motion Z0 exp(-i phase) becomes the constant Z0
+    demod = z * np.exp(1j * phase)
+    half_period = np.pi / np.abs(f)
+    amp = np.abs(_window_mean(_cumtrapz(demod, t), t, half_period))
+    runs = _runs(amp >= threshold)
+    merged: list[list[int]] = []
+    for i0, i1 in runs:
+        if merged and t[i0] - t[merged[-1][1]] < merge_cycles * 2.0 * half_period[i0]:
+            merged[-1][1] = i1
+        else:
+            merged.append([i0, i1])
+    cuts = np.flatnonzero(inside[1:] != inside[:-1]) + 1
+    pieces = []
+    for i0, i1 in merged:
+        inner = cuts[(cuts > i0) & (cuts <= i1)]
+        bounds = [i0, *inner.tolist(), i1 + 1]
+        pieces += [(a, b - 1) for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
+    out = []
+    for i0, i1 in pieces:
+        if i1 <= i0:
+            continue
+        cycles = abs(phase[i1] - phase[i0]) / (2.0 * math.pi)
+        if cycles < min_cycles:
+            continue
+        span = t[i1] - t[i0]
+        f_mean = (phase[i1] - phase[i0]) / span
+        sl = slice(i0, i1 + 1)
+        speed = float(_cumtrapz(amp[sl], t[sl])[-1] / span)
+        out.append(_event(drifter_id, "inertial", times[i0], times[i1],
+                          2.0 * math.pi / abs(f_mean), speed / abs(f_mean), speed,
+                          "anticyclonic", float(np.mean(lat[sl])),
+                          _circular_mean_deg(lon[sl]), cycles))
+    return out
+
+
+def truth_events(release: SyntheticRelease, *, ringing_threshold_m_s: float = 0.05,
+                 min_cycles: float = 2.0, merge_cycles: float = 0.5,
+                 eddy_weight_threshold: float = 0.5,
+                 tidal_threshold_m_s: float = 0.05) -> pd.DataFrame:
+    """List the loop events a detector should find in a synthetic release.
+
+    Three kinds of event are derived from the ground truth and the scenario:
+
+    ``inertial``
+        Ringing of the slab mixed layer.  The slab velocity Z is complex
+        demodulated at the drifter's own effective inertial frequency,
+        D(t) = Z(t) exp(i integral of f_eff dt), and D is averaged over one
+        local inertial period 2 pi / |f_eff| (a boxcar over one period
+        removes the slowly varying, directly wind-driven part of Z); the
+        modulus A(t) of that mean is the speed of the inertial circle.  An
+        event is a stretch where A >= ``ringing_threshold_m_s``; stretches
+        less than ``merge_cycles`` inertial periods apart are joined, and
+        the result is kept if it lasts at least ``min_cycles`` inertial
+        cycles (integral of |f_eff| dt / 2 pi).  f_eff = f + w zeta / 2
+        inside an eddy of relative vorticity zeta with trapping weight w
+        (Kunze 1985), else f = 2 Omega sin(lat) at the true position.
+        ``period_h`` is 2 pi / |mean f_eff| over the event (at the mean
+        latitude to second order), ``speed_m_s`` the mean of A,
+        ``radius_km`` = speed / |mean f_eff|, ``spin`` always
+        ``"anticyclonic"`` (AMS Glossary, "inertial oscillation").
+    ``eddy``
+        The time the drifter's trapping weight is at least
+        ``eddy_weight_threshold``, with the orbit as simulated: ``radius_km``
+        the mean distance of the drifter from the eddy centre, ``period_h``
+        2 pi over the mean angular rate about the centre (the turn of the
+        drifter-centre vector from the first to the last fix divided by the
+        time; slightly longer than the :class:`EddyEncounter` period because
+        the swirl is still ramping at both ends), ``speed_m_s`` the mean
+        swirl speed, ``spin`` from the sense of that turn.  Inertial events
+        are split where the drifter enters or leaves its eddy (the Kunze
+        shift changes the inertial period there).
+    ``tidal``
+        One event per :class:`TidalCurrent` whose semi-major speed is at
+        least ``tidal_threshold_m_s``, spanning the whole record; period of
+        the constituent, ``speed_m_s`` the semi-major speed a, ``radius_km``
+        the semi-major excursion a / omega, ``ellipse_ratio`` and
+        ``orientation_deg`` as specified; ``spin`` from the sense of
+        rotation (anticlockwise is cyclonic in the northern hemisphere),
+        missing for a rectilinear current.
+
+    ``lat`` and ``lon`` are the mean true position over the event; times
+    are those of the first and last scheduled fix in it (lost fixes and
+    gaps included: the events are properties of the motion, not of the
+    sampling).
+
+    Parameters
+    ----------
+    release : SyntheticRelease
+        A release simulated with ``truth=True``.
+    ringing_threshold_m_s : float, optional
+        Inertial speed above which the slab layer is ringing (m/s).
+    min_cycles : float, optional
+        Shortest inertial event, in inertial cycles.
+    merge_cycles : float, optional
+        Stretches above the threshold closer than this many inertial
+        periods form one event.
+    eddy_weight_threshold : float, optional
+        Trapping weight from which a drifter counts as looping in its eddy.
+    tidal_threshold_m_s : float, optional
+        Smallest semi-major tidal speed that makes a tidal event (m/s).
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per event, columns :data:`TRUTH_EVENT_COLUMNS`, sorted by
+        drifter (scenario order) and start; ``start`` and ``end`` are
+        datetime64[ns, UTC]; ``cycles`` is the number of loops;
+        ``constituent``, ``ellipse_ratio`` and ``orientation_deg`` are set
+        for tidal events only.
+
+    Raises
+    ------
+    ValueError
+        If the release was simulated without its truth table.
+
+    Notes
+    -----
+    Complex demodulation of a rotary signal at a known frequency is the
+    classical way of following a narrow-band amplitude (e.g. Bloomfield,
+    *Fourier Analysis of Time Series*, 1976, from memory); here the
+    frequency is exact, taken from the same f_eff the slab model used.
+    """
+    sc = release.scenario
+    truth = release.truth
+    if truth.empty and not release.fixes.empty:
+        raise ValueError("truth_events needs a release simulated with truth=True")
+    rows = truth[truth["corruption"] != "duplicate"]
+    start = pd.Timestamp(sc.start_utc)
+    start = start.tz_localize("UTC") if start.tzinfo is None else start.tz_convert("UTC")
+    eddy_of = {e.drifter_id: e for e in sc.eddies}
+    tides_of: dict[str, list[TidalCurrent]] = {}
+    for tide in sc.tides:
+        tides_of.setdefault(tide.drifter_id, []).append(tide)
+    hemisphere = {d: (1.0 if lat > 0 else -1.0)
+                  for d, lat in zip(sc.drifter_ids, sc.deploy_lat_deg, strict=True)}
+    events: list[dict] = []
+    for drifter_id, g in rows.groupby("drifter_id", sort=False, observed=True):
+        if len(g) < 3:
+            continue
+        times = pd.DatetimeIndex(g["time"])
+        t = (times - start).total_seconds().to_numpy()
+        lat = g["lat_true"].to_numpy(dtype=float)
+        lon = g["lon_true"].to_numpy(dtype=float)
+        z = g["u_slab_m_s"].to_numpy(dtype=float) + 1j * g["v_slab_m_s"].to_numpy(dtype=float)
+        f = coriolis_parameter(lat)
+        weight = g["eddy_weight"].to_numpy(dtype=float)
+        eddy = eddy_of.get(drifter_id)
+        if eddy is not None and eddy.shift_inertial_frequency:
+            inside = weight > 0
+            off = _offset(g["eddy_lat"].to_numpy(dtype=float)[inside],
+                          g["eddy_lon"].to_numpy(dtype=float)[inside], lat[inside], lon[inside])
+            f = f.copy()
+            f[inside] += weight[inside] * 0.5 * _eddy_vorticity(eddy, hemisphere[drifter_id],
+                                                                off)
+        inside = weight >= eddy_weight_threshold
+        events += _ringing(drifter_id, times, t, lat, lon, z, f, inside, ringing_threshold_m_s,
+                           min_cycles, merge_cycles)
+        held = np.flatnonzero(inside)
+        if eddy is not None and held.size >= 2:
+            sl = slice(held[0], held[-1] + 1)
+            # the orbit as simulated: drifter about the eddy centre
+            off = _offset(g["eddy_lat"].to_numpy(dtype=float)[sl],
+                          g["eddy_lon"].to_numpy(dtype=float)[sl], lat[sl], lon[sl])
+            turn = np.unwrap(np.angle(off))
+            rate = (turn[-1] - turn[0]) / (t[sl][-1] - t[sl][0])
+            period = 2.0 * math.pi / abs(rate)
+            swirl = np.hypot(g["u_eddy_m_s"].to_numpy(dtype=float)[sl],
+                             g["v_eddy_m_s"].to_numpy(dtype=float)[sl])
+            mean_lat = float(np.mean(lat[sl]))
+            events.append(_event(drifter_id, "eddy", times[sl][0], times[sl][-1], period,
+                                 float(np.mean(np.abs(off))), float(np.mean(swirl)),
+                                 _spin_of_rotation(rate > 0, mean_lat), mean_lat,
+                                 _circular_mean_deg(lon[sl]), (t[sl][-1] - t[sl][0]) / period))
+        for tide in tides_of.get(drifter_id, []):
+            if tide.amplitude_m_s < tidal_threshold_m_s:
+                continue
+            period = tide.period_s
+            mean_lat = float(np.mean(lat))
+            spin = (pd.NA if tide.ellipse_ratio == 0 else
+                    _spin_of_rotation(tide.ellipse_ratio > 0, mean_lat))
+            events.append(_event(drifter_id, "tidal", times[0], times[-1], period,
+                                 tide.amplitude_m_s * period / (2.0 * math.pi),
+                                 tide.amplitude_m_s, spin, mean_lat, _circular_mean_deg(lon),
+                                 (t[-1] - t[0]) / period, tide.constituent, tide.ellipse_ratio,
+                                 tide.orientation_deg))
+    table = pd.DataFrame(events, columns=list(TRUTH_EVENT_COLUMNS))
+    order = {d: i for i, d in enumerate(sc.drifter_ids)}
+    return _tidy_events(table, order)
+
+
+_EVENT_DTYPES = {
+    "drifter_id": _STRING, "kind": _STRING, "start": "datetime64[ns, UTC]",
+    "end": "datetime64[ns, UTC]", "period_h": float, "radius_km": float, "speed_m_s": float,
+    "spin": _STRING, "lat": float, "lon": float, "cycles": float, "constituent": _STRING,
+    "ellipse_ratio": float, "orientation_deg": float,
+}
+
+
+def _tidy_events(table: pd.DataFrame, order: dict[str, int]) -> pd.DataFrame:
+    """Sort a truth-event table and give its columns their dtypes."""
+    if table.empty:
+        return pd.DataFrame({c: pd.Series(dtype=_EVENT_DTYPES[c]) for c in TRUTH_EVENT_COLUMNS})
+    table = table.copy()
+    for key in ("start", "end"):
+        table[key] = pd.to_datetime(table[key], utc=True).astype("datetime64[ns, UTC]")
+    rank = table["drifter_id"].map(order).to_numpy()
+    table = table.iloc[np.lexsort((pd.DatetimeIndex(table["start"]).asi8, rank))]
+    table = table.reset_index(drop=True)
+    return table.astype({c: d for c, d in _EVENT_DTYPES.items() if c not in ("start", "end")})
+
+
+# ---------------------------------------------------------------------------
+# the evaluation release
+# ---------------------------------------------------------------------------
+
+
+class _Site(NamedTuple):
+    """A deployment site of the evaluation release."""
+
+    name: str
+    lat_deg: float
+    lon_deg: float
+    drift_east_m_s: float
+    drift_north_m_s: float
+    tides: tuple[str, ...]  # constituents given to the site's tidal drifter
+    eddy_spin: str | None  # spin of the site's eddy looper, if any
+    quiet: bool  # whether the site has a quiet drifter
+
+
+#: Deployment sites of :func:`evaluation_release`: name, centre latitude and
+#: longitude (degrees), uniform drift (east, north; m/s), the constituents of
+#: the site's tidal drifter, the spin of its eddy looper and whether it has a
+#: quiet drifter.  All are open ocean, several hundred kilometres from land
+#: (common geographic knowledge; the tests check every true position with
+#: :func:`driftloop.landmask.is_land`).  A constituent is only given where
+#: the local inertial period T_i differs from its period by more than 25 %
+#: (|ln(T_i / T)| > ln 1.25) all along the tracks: M2 (12.42 h) only at
+#: |lat| <= 45 deg, far below its 74.5 deg critical latitude, K1 (23.93 h)
+#: and O1 (25.82 h) only well away from 30 and 27.6 deg.
+EVALUATION_SITES = (
+    _Site("NA", 45.0, -35.0, 0.05, 0.01, ("M2", "K1"), "cyclonic", True),
+    _Site("NB", 56.0, -28.0, -0.03, -0.02, ("K1",), None, True),
+    _Site("NC", 35.0, -150.0, 0.05, 0.0, ("M2",), "anticyclonic", False),
+    _Site("ND", 18.0, -130.0, -0.06, 0.01, ("M2", "K1"), "cyclonic", True),
+    _Site("SA", -40.0, -25.0, 0.05, 0.0, ("M2",), "anticyclonic", True),
+    _Site("SB", -52.0, 105.0, 0.08, 0.0, ("K1",), None, True),
+    _Site("SC", -32.0, -118.0, -0.03, 0.01, ("M2",), "cyclonic", False),
+    _Site("SD", -18.0, 85.0, -0.05, 0.0, ("M2", "O1"), "anticyclonic", True),
+)
+
+_EVAL_NAME = "velmora-evaluation"
+_EVAL_START = "2025-03-01T00:00:00Z"
+_EVAL_DAYS = 90.0
+
+
+@dataclass(frozen=True, eq=False)
+class EvaluationRelease:
+    """What :func:`evaluation_release` returns: a multi-site release and its truth.
+
+    Attributes
+    ----------
+    name : str
+        Name of the release.
+    seed : int
+        The seed it was built from.
+    releases : tuple of SyntheticRelease
+        One simulated release per site (own storms, mean flow and seed).
+    fixes : pandas.DataFrame
+        All fixes, site after site, as in :attr:`SyntheticRelease.fixes`.
+    truth : pandas.DataFrame
+        All truth rows, columns :data:`TRUTH_COLUMNS` and
+        :data:`TIDE_TRUTH_COLUMNS` (zero without a tide); ``fix_row``
+        refers to rows of ``fixes``.
+    events : pandas.DataFrame
+        The truth events (:func:`truth_events`, default thresholds).
+    drifters : pandas.DataFrame
+        One row per drifter: ``drifter_id``, ``site``, ``hemisphere``
+        (``"north"``/``"south"``), ``quiet`` (bool), ``eddy_spin`` (or
+        missing), ``tides`` (constituents joined by ``+``, or empty),
+        ``n_gaps``, ``longest_gap_h`` (injected gaps), ``first_fix``,
+        ``last_fix`` and ``days`` (between the first and last fix).
+    storms : pandas.DataFrame
+        The storms of every site, with a ``site`` column.
+    """
+
+    name: str
+    seed: int
+    releases: tuple[SyntheticRelease, ...] = field(repr=False)
+    fixes: pd.DataFrame = field(repr=False)
+    truth: pd.DataFrame = field(repr=False)
+    events: pd.DataFrame = field(repr=False)
+    drifters: pd.DataFrame = field(repr=False)
+    storms: pd.DataFrame = field(repr=False)
+
+    @property
+    def quiet_drifters(self) -> list[str]:
+        """Ids of the quiet drifters."""
+        return self.drifters.loc[self.drifters["quiet"], "drifter_id"].astype(str).tolist()
+
+
+def _site_scenario(site: _Site, ids: list[str], roles: list[str], rng: np.random.Generator,
+                   step_s: float) -> ReleaseScenario:
+    """Draw the scenario of one site of the evaluation release."""
+    n = len(ids)
+    lat = site.lat_deg + rng.uniform(-0.5, 0.5, n)
+    lon = site.lon_deg + rng.uniform(-0.5, 0.5, n) / math.cos(site.lat_deg * _DEG)
+    deploy_day = rng.uniform(0.0, _EVAL_DAYS - 60.0, n)
+    inertial_days = float(2.0 * math.pi / abs(coriolis_parameter(site.lat_deg))) / _DAY_S
+    eddies, tides, gaps, spikes, duplicates = [], [], [], [], []
+    for i, (drifter, role) in enumerate(zip(ids, roles, strict=True)):
+        first, last = deploy_day[i], _EVAL_DAYS
+        if role == "eddy":
+            # period long enough that |zeta / 2 f| <= 0.2 at the orbit (see Notes)
+            period = max(3.0, 4.6 * inertial_days) * rng.uniform(1.0, 1.4)
+            radius = rng.uniform(8.0, 20.0)
+            duration = min(max(15.0, 3.5 * period) * rng.uniform(1.0, 1.3), last - first - 8.0)
+            eddies.append(EddyEncounter(
+                drifter, start_day=float(first + rng.uniform(3.0, last - first - duration - 3.0)),
+                duration_days=float(duration), orbit_radius_km=float(radius),
+                orbit_period_days=float(period),
+                core_radius_km=float(radius * rng.uniform(1.6, 2.5)), spin=site.eddy_spin,
+                centre_bearing_deg=float(rng.uniform(0.0, 360.0))))
+        if role == "tidal":
+            for name in site.tides:
+                amplitude = rng.uniform(0.06, 0.15) if name in ("M2", "S2") else rng.uniform(
+                    0.06, 0.10)
+                ratio = rng.choice([-1.0, 1.0]) * rng.uniform(0.3, 0.9)
+                tides.append(TidalCurrent(drifter, name, float(amplitude), float(ratio),
+                                          float(rng.uniform(0.0, 180.0)),
+                                          float(rng.uniform(0.0, 360.0))))
+        if rng.random() < 0.5:
+            gaps.append(FixGap(drifter, float(rng.uniform(first + 2.0, last - 3.0)),
+                               float(rng.uniform(6.0, 14.0))))
+        if rng.random() < 0.2:
+            gaps.append(FixGap(drifter, float(rng.uniform(first + 2.0, last - 3.0)),
+                               float(rng.uniform(20.0, 40.0))))
+        for _ in range(int(rng.poisson(1.5))):
+            spikes.append(PositionSpike(drifter, float(rng.uniform(first + 0.5, last)),
+                                        float(rng.uniform(2.0, 10.0)),
+                                        float(rng.uniform(0.0, 360.0))))
+        if rng.random() < 0.1:
+            spikes.append(PositionSpike(drifter, float(rng.uniform(first + 0.5, last)),
+                                        float(rng.uniform(20.0, 60.0)),
+                                        float(rng.uniform(0.0, 360.0))))
+        for _ in range(int(rng.poisson(0.5))):
+            duplicates.append(DuplicateFix(drifter, float(rng.uniform(first + 0.5, last))))
+    return ReleaseScenario(
+        name=f"{_EVAL_NAME}-{site.name}", drifter_ids=tuple(ids), deploy_lat_deg=tuple(lat),
+        deploy_lon_deg=tuple(_wrap(lon)), deploy_after_start_h=tuple(deploy_day * 24.0),
+        start_utc=_EVAL_START, duration_days=_EVAL_DAYS, step_s=step_s,
+        drift_east_m_s=site.drift_east_m_s, drift_north_m_s=site.drift_north_m_s,
+        meander_speed_m_s=float(rng.uniform(0.05, 0.12)),
+        meander_wavelength_km=float(rng.uniform(150.0, 250.0)),
+        meander_width_km=float(rng.uniform(120.0, 200.0)),
+        reference_lat_deg=site.lat_deg, reference_lon_deg=site.lon_deg,
+        mixed_layer_depth_m=float(rng.uniform(30.0, 60.0)),
+        damping_time_days=float(rng.uniform(3.0, 5.0)),
+        background_wind_m_s=float(rng.uniform(3.0, 6.0)),
+        background_wind_toward_deg=float(rng.uniform(0.0, 360.0)),
+        storm_mean_interval_days=float(rng.uniform(3.5, 5.5)),
+        gps_noise_m=float(rng.uniform(5.0, 10.0)),
+        eddies=tuple(eddies), tides=tuple(tides), gaps=tuple(gaps), spikes=tuple(spikes),
+        duplicates=tuple(duplicates),
+        quiet_drifters=tuple(d for d, r in zip(ids, roles, strict=True) if r == "quiet"))
+
+
+def evaluation_release(seed: int = 0, n_drifters: int = 40, *,
+                       sites: Sequence[str] | None = None,
+                       step_s: float = 3600.0) -> EvaluationRelease:
+    """Build and simulate the release that loop detection is scored on.
+
+    The drifters are split evenly between the eight open-ocean sites of
+    :data:`EVALUATION_SITES`, four in each hemisphere between 18 and 56
+    degrees of latitude.  Each site is its own :class:`ReleaseScenario`
+    with its own storms (3.5-5.5 days apart on average), mixed-layer depth
+    (30-60 m), damping time (3-5 days), background wind (3-6 m/s), uniform
+    drift and meander (0.05-0.12 m/s), all drawn from the seed.  Drifters
+    are deployed within 0.5 degrees of the site centre.  Within a site the
+    first drifter is an eddy looper
+    (six sites; cyclonic and anticyclonic eddies in both hemispheres), the
+    second carries the site's tides (M2 at six sites, K1 at four, O1 at
+    one), the third is quiet (six sites: no wind reaches it, so it has no
+    inertial motion), and all others are ordinary drifters.  Every
+    drifter but the quiet ones rings after the storms of its site; all
+    share the site's mean flow and meander.  With the default 40 drifters:
+    6 eddy loopers, 8 tidal drifters (11 tidal currents), 6 quiet drifters
+    and 20 ordinary ones.
+
+    Each drifter is deployed at a random time in the first 30 days and
+    followed to day 90 (records of 60 to 90 days), with hourly fixes
+    (2 min jitter, 2 % lost), GPS noise of 5-10 m, on average 1.5 spikes of
+    2-10 km, a 20-60 km spike for one drifter in ten, 0.5 duplicated
+    records, a 6-14 h gap for half of the drifters and a 20-40 h gap for
+    one in five.  Eddy loopers orbit at 8-20 km with a period of
+    1.0-1.4 times max(3 days, 4.6 T_i) for 15 days or 3.5 periods or more.
+    Tidal currents have semi-major speeds of 0.06-0.15 m/s (M2) or
+    0.06-0.10 m/s (K1, O1) and ellipse ratios of 0.3-0.9 of either sign.
+
+    Parameters
+    ----------
+    seed : int, optional
+        Seed of every random draw; the same seed gives identical tables.
+    n_drifters : int, optional
+        Number of drifters, at least one per site, split evenly between
+        the sites (the first sites get one more when it does not divide).
+        The mix above needs three per site to include quiet drifters; 40
+        is the design.
+    sites : sequence of str, optional
+        Names of the sites to simulate (default: all of
+        :data:`EVALUATION_SITES`).  Each site draws from its own random
+        stream (seeded by ``seed`` and its position in
+        :data:`EVALUATION_SITES`), so a site with the same number of
+        drifters comes out the same whichever other sites are included.
+    step_s : float, optional
+        Integration step (s).  The slab layer and the tides are integrated
+        exactly at any step and the truth events are measured on the
+        simulated motion, so the default of one hour costs no accuracy
+        that the evaluation depends on; the mean flow and the eddy swirl,
+        which change over days, are second-order accurate.
+
+    Returns
+    -------
+    EvaluationRelease
+        Fixes, truth, truth events and a table of drifters.
+
+    Notes
+    -----
+    The eddy period bound keeps the Rossby number small: with the orbit
+    inside the core (core radius 1.6-2.5 orbit radii) the vorticity at the
+    orbit is at most 1.84 times the orbital angular velocity, so a period of
+    at least 4.6 T_i keeps the Kunze (1985) shift |zeta / 2 f| below 0.2.
+
+    Examples
+    --------
+    >>> release = evaluation_release(seed=1, n_drifters=8)  # doctest: +SKIP
+    >>> sorted(release.events["kind"].unique())  # doctest: +SKIP
+    ['eddy', 'inertial', 'tidal']
+    """
+    known = [site.name for site in EVALUATION_SITES]
+    chosen = known if sites is None else list(dict.fromkeys(sites))
+    unknown = sorted(set(chosen) - set(known))
+    if unknown or not chosen:
+        raise ValueError(f"sites must be a non-empty selection of {known}, got {sites!r}")
+    if n_drifters < len(chosen):
+        raise ValueError(f"need at least one drifter per site ({len(chosen)}), got {n_drifters}")
+    count = [n_drifters // len(chosen) + (1 if k < n_drifters % len(chosen) else 0)
+             for k in range(len(chosen))]
+    releases, fixes, truths, events, storms, rows = [], [], [], [], [], []
+    offset = 0
+    for name, m in zip(chosen, count, strict=True):
+        position = known.index(name)
+        site = EVALUATION_SITES[position]
+        rng = np.random.default_rng([seed, 20250301, position])
+        ids = [f"VEL-{site.name}{k + 1:02d}" for k in range(m)]
+        slots = ["eddy" if site.eddy_spin else "ordinary", "tidal" if site.tides else "ordinary",
+                 "quiet" if site.quiet else "ordinary"]
+        roles = [slots[k] if k < len(slots) else "ordinary" for k in range(m)]
+        sc = _site_scenario(site, ids, roles, rng, step_s)
+        release = simulate_release(sc, int(rng.integers(2**31)))
+        releases.append(release)
+        truth = release.truth.copy()
+        for key in TIDE_TRUTH_COLUMNS:
+            if key not in truth:
+                truth[key] = 0.0
+        truth["fix_row"] = np.where(truth["fix_row"] >= 0, truth["fix_row"] + offset, -1)
+        offset += len(release.fixes)
+        fixes.append(release.fixes)
+        truths.append(truth)
+        events.append(truth_events(release))
+        storms.append(release.storms.assign(site=site.name))
+        for drifter, role in zip(ids, roles, strict=True):
+            times = release.fixes.loc[release.fixes["drifter_id"] == drifter, "time"]
+            gaps = [g.duration_h for g in sc.gaps if g.drifter_id == drifter]
+            rows.append({
+                "drifter_id": drifter, "site": site.name,
+                "hemisphere": "north" if site.lat_deg > 0 else "south",
+                "quiet": role == "quiet",
+                "eddy_spin": site.eddy_spin if role == "eddy" else pd.NA,
+                "tides": "+".join(t.constituent for t in sc.tides if t.drifter_id == drifter),
+                "n_gaps": len(gaps), "longest_gap_h": max(gaps, default=0.0),
+                "first_fix": times.min(), "last_fix": times.max(),
+                "days": (times.max() - times.min()).total_seconds() / _DAY_S,
+            })
+    drifters = pd.DataFrame(rows)
+    for key in ("drifter_id", "site", "hemisphere", "eddy_spin", "tides"):
+        drifters[key] = drifters[key].astype(_STRING)
+    return EvaluationRelease(
+        name=_EVAL_NAME, seed=seed, releases=tuple(releases),
+        fixes=pd.concat(fixes, ignore_index=True),
+        truth=pd.concat(truths, ignore_index=True),
+        events=pd.concat(events, ignore_index=True),
+        drifters=drifters,
+        storms=pd.concat(storms, ignore_index=True))
+
+
 def _iso(times: pd.Series) -> pd.Series:
     return pd.Series(pd.DatetimeIndex(times).tz_convert("UTC").strftime("%Y-%m-%dT%H:%M:%SZ"),
                      index=times.index)
@@ -1371,9 +2169,10 @@ _TRUTH_FORMATS = {
 def write_truth_csv(truth: pd.DataFrame, path: str | Path) -> Path:
     """Write the ground-truth table as CSV.
 
-    Columns as :data:`TRUTH_COLUMNS`; times ISO 8601 UTC with ``Z``;
-    positions with 7 decimals (about 1 cm), velocities and stresses with
-    5, offsets with 1; empty cells for NaN.
+    Columns as :data:`TRUTH_COLUMNS`, followed by :data:`TIDE_TRUTH_COLUMNS`
+    when the table has them; times ISO 8601 UTC with ``Z``; positions with
+    7 decimals (about 1 cm), velocities and stresses with 5, offsets with 1;
+    empty cells for NaN.
 
     Parameters
     ----------
@@ -1394,5 +2193,8 @@ def write_truth_csv(truth: pd.DataFrame, path: str | Path) -> Path:
     table["corruption"] = truth["corruption"].astype(str)
     for key, spec in _TRUTH_FORMATS.items():
         table[key] = _fmt(truth[key], spec)
+    for key in TIDE_TRUTH_COLUMNS:
+        if key in truth:
+            table[key] = _fmt(truth[key], "%.5f")
     table.to_csv(path, index=False, lineterminator="\n")
     return path

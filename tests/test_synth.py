@@ -326,3 +326,291 @@ def test_qc_finds_exactly_the_corruptions_injected_in_the_sample():
     failed = set(out.loc[out["qc_flag"] == 4, "source_row"])
     assert failed == expected
     assert (out["qc_flag"] != 3).all()
+
+
+# (h) tides, hemispheres, quiet drifters, truth events and the evaluation release ----------
+
+# NOAA CO-OPS harmonic constituent speed of M2: 28.9841042 degrees per hour
+NOAA_M2_PERIOD_H = 360.0 / 28.9841042  # 12.4206 h
+
+
+def _still(lat: float, **kw) -> ReleaseScenario:
+    """One drifter, no wind, no mean flow, no noise; the caller adds tides or eddies."""
+    args = dict(
+        name="still", drifter_ids=("T",), deploy_lat_deg=(lat,), deploy_lon_deg=(-30.0,),
+        duration_days=6.0, spinup_days=0.0, drift_east_m_s=0.0, drift_north_m_s=0.0,
+        meander_speed_m_s=0.0, background_wind_m_s=0.0, storm_mean_interval_days=math.inf,
+        fix_interval_h=0.25, fix_jitter_min=0.0, fix_loss_probability=0.0, gps_noise_m=0.0,
+        step_s=1800.0)
+    args.update(kw)
+    return ReleaseScenario(**args)
+
+
+def _rotary_fit(t: np.ndarray, z: np.ndarray, omega: float) -> tuple[complex, complex]:
+    """Least-squares coefficients of exp(+i omega t) and exp(-i omega t) (plus a constant)."""
+    design = np.column_stack([np.exp(1j * omega * t), np.exp(-1j * omega * t),
+                              np.ones_like(t)])
+    coef = np.linalg.lstsq(design, z, rcond=None)[0]
+    return complex(coef[0]), complex(coef[1])
+
+
+@pytest.mark.parametrize("ratio", [0.5, -0.4])
+def test_tidal_current_period_and_ellipse(ratio):
+    from driftloop.synth import TidalCurrent
+
+    amplitude, orientation = 0.2, 30.0
+    sc = _still(40.0, tides=(TidalCurrent("T", "M2", amplitude, ratio, orientation, 75.0),))
+    release = simulate_release(sc, seed=0)
+    fixes = release.fixes
+    x, y = _local_xy(fixes)
+    t = _seconds(fixes["time"])
+    z = x + 1j * y
+    # period: maximum of the rotary periodogram of the track, on a fine grid around 12.4 h
+    periods_h = np.linspace(11.5, 13.5, 4001)
+    power = [abs(np.sum((z - z.mean()) * np.exp(-1j * np.sign(ratio) * 2 * np.pi / (p * 3600)
+                                                 * t))) for p in periods_h]
+    peak_h = periods_h[int(np.argmax(power))]
+    # NOAA CO-OPS M2 speed 28.9841042 deg/h -> 12.4206 h; the 6-day record and 1.8 s
+    # grid resolve the peak to better than 0.05 %
+    assert peak_h == pytest.approx(NOAA_M2_PERIOD_H, rel=5e-4)
+    # ellipse: the excursion ellipse has semi-axes a / omega and |b| / omega (b = ratio a),
+    # its major axis at the stated orientation, and turns anticlockwise when b > 0
+    omega = 2 * np.pi / (NOAA_M2_PERIOD_H * 3600)
+    cp, cm = _rotary_fit(t, z, omega)
+    assert abs(cp) + abs(cm) == pytest.approx(amplitude / omega, rel=2e-3)
+    assert abs(cp) - abs(cm) == pytest.approx(ratio * amplitude / omega, rel=5e-3)
+    theta = np.degrees(0.5 * (np.angle(cp) + np.angle(cm))) % 180.0
+    assert theta == pytest.approx(orientation, abs=0.5)
+    signed_area = 0.5 * np.sum(x[:-1] * y[1:] - x[1:] * y[:-1])
+    assert (signed_area > 0) == (ratio > 0)
+    truth = release.truth
+    speed = np.hypot(truth["u_tide_m_s"], truth["v_tide_m_s"])
+    assert speed.max() == pytest.approx(amplitude, rel=1e-3)
+    assert speed.min() == pytest.approx(abs(ratio) * amplitude, rel=1e-2)
+
+
+def test_tides_add_up_with_the_other_components(tmp_path):
+    from driftloop.synth import TIDE_TRUTH_COLUMNS, TidalCurrent, write_truth_csv
+
+    sc = ReleaseScenario(
+        name="tidal", drifter_ids=("A", "B"), deploy_lat_deg=(42.0, 42.1),
+        deploy_lon_deg=(-35.0, -35.1), duration_days=4.0, spinup_days=1.0,
+        fix_interval_h=0.25, fix_jitter_min=0.0, fix_loss_probability=0.0, gps_noise_m=0.0,
+        eddies=(EddyEncounter("B", start_day=0.5, duration_days=3.0, orbit_period_days=2.0),),
+        tides=(TidalCurrent("A", "M2", 0.12, 0.6, 20.0, 10.0),
+               TidalCurrent("A", "K1", 0.06, -0.5, 100.0, 200.0),
+               TidalCurrent("B", "S2", 0.08, 0.3)))
+    release = simulate_release(sc, seed=4)
+    truth = release.truth
+    assert tuple(truth.columns) == TRUTH_COLUMNS + TIDE_TRUTH_COLUMNS
+    for drifter, track in truth.groupby("drifter_id"):
+        track = track.assign(lat=track["lat_true"], lon=track["lon_true"])
+        u, v, _ = _centred_velocity(track)
+        inner = track.iloc[1:-1]
+        u_sum = inner[["u_mean_m_s", "u_slab_m_s", "u_eddy_m_s", "u_tide_m_s"]].sum(axis=1)
+        v_sum = inner[["v_mean_m_s", "v_slab_m_s", "v_eddy_m_s", "v_tide_m_s"]].sum(axis=1)
+        # centred differences over an even 30 min shorten the chords of a 12-h loop
+        # by (omega dt)^2 / 6 ~ 0.3 %, i.e. well under 1 mm/s
+        err = np.hypot(u - u_sum.to_numpy(), v - v_sum.to_numpy())
+        assert np.percentile(err, 99) < 1e-3, drifter
+    header = write_truth_csv(truth, tmp_path / "t.csv").read_text().splitlines()[0]
+    assert header.endswith("tau_north_pa,u_tide_m_s,v_tide_m_s")
+
+
+def test_tide_scenarios_are_validated():
+    from driftloop.synth import TidalCurrent
+
+    with pytest.raises(ValueError, match="constituent"):
+        _still(40.0, tides=(TidalCurrent("T", "N2"),))
+    with pytest.raises(ValueError, match="ellipse_ratio"):
+        _still(40.0, tides=(TidalCurrent("T", ellipse_ratio=1.5),))
+    with pytest.raises(ValueError, match="unknown drifter"):
+        _still(40.0, tides=(TidalCurrent("Z"),))
+    with pytest.raises(ValueError, match="quiet_drifters"):
+        _still(40.0, quiet_drifters=("Z",))
+
+
+def _rotary_coefficient_near(lat: float, z: np.ndarray, dt_s: float) -> float:
+    """(S+ - S-) / (S+ + S-) within 20 % of |f| (Gonella 1972; METHODS.md section 5)."""
+    spec = np.abs(np.fft.fft(z - z.mean())) ** 2
+    freq = np.fft.fftfreq(z.size, dt_s) * 2 * np.pi
+    band = np.abs(np.abs(freq) / abs(coriolis_parameter(lat)) - 1) < 0.2
+    plus = spec[band & (freq > 0)].sum()
+    minus = spec[band & (freq < 0)].sum()
+    return float((plus - minus) / (plus + minus))
+
+
+@pytest.mark.parametrize("lat", [40.0, -40.0])
+def test_storm_driven_ringing_is_anticyclonic_in_both_hemispheres(lat):
+    # AMS Glossary of Meteorology, "inertial oscillation": clockwise in the northern
+    # hemisphere, anticlockwise in the southern; with storms, not only free motion
+    sc = ReleaseScenario(name="ring", drifter_ids=("R",), deploy_lat_deg=(lat,),
+                         deploy_lon_deg=(-25.0,), duration_days=30.0, gps_noise_m=0.0,
+                         step_s=1800.0)
+    truth = simulate_release(sc, seed=8).truth
+    t = _seconds(truth["time"])
+    grid = np.arange(0.0, t[-1], 3600.0)
+    z = (np.interp(grid, t, truth["u_slab_m_s"]) + 1j * np.interp(grid, t, truth["v_slab_m_s"]))
+    coefficient = _rotary_coefficient_near(lat, z, 3600.0)
+    # almost purely anticlockwise (> 0) in the south, clockwise (< 0) in the north
+    assert coefficient * np.sign(lat) < -0.9
+    assert np.abs(z).max() > 0.1  # the storms did make it ring
+
+
+@pytest.mark.parametrize("lat", [40.0, -40.0])
+@pytest.mark.parametrize("spin", ["cyclonic", "anticyclonic"])
+def test_eddies_of_either_spin_in_either_hemisphere(lat, spin):
+    from driftloop.synth import truth_events
+
+    eddy = EddyEncounter("E", start_day=2.0, duration_days=14.0, orbit_radius_km=12.0,
+                         orbit_period_days=4.0, core_radius_km=30.0, spin=spin)
+    sc = ReleaseScenario(name="eddy", drifter_ids=("E",), deploy_lat_deg=(lat,),
+                         deploy_lon_deg=(-25.0,), duration_days=18.0, gps_noise_m=0.0,
+                         step_s=1800.0, eddies=(eddy,))
+    release = simulate_release(sc, seed=2)
+    truth = release.truth
+    held = truth[truth["eddy_weight"] > 0.999]
+    az, _, _ = GEOD.inv(held["eddy_lon"].to_numpy(), held["eddy_lat"].to_numpy(),
+                        held["lon_true"].to_numpy(), held["lat_true"].to_numpy())
+    rate = np.polyfit(_seconds(held["time"]), np.unwrap(np.radians(90.0 - az)), 1)[0]
+    # cyclonic = the sense of the Earth's rotation: anticlockwise north, clockwise south
+    anticlockwise = (spin == "cyclonic") == (lat > 0)
+    assert (rate > 0) == anticlockwise
+    assert 2 * math.pi / abs(rate) / 86400 == pytest.approx(eddy.orbit_period_days, rel=0.01)
+    events = truth_events(release)
+    found = events[events["kind"] == "eddy"].iloc[0]
+    assert found["spin"] == spin
+    assert found["radius_km"] == pytest.approx(eddy.orbit_radius_km, rel=0.01)
+    # the event includes the half ramps, so its mean period is a little longer
+    assert 1.0 <= found["period_h"] / (eddy.orbit_period_days * 24) < 1.05
+    # Kunze (1985): inside a cyclone inertial motion is super-inertial, in an
+    # anticyclone sub-inertial, in either hemisphere
+    inside = events[(events["kind"] == "inertial") & (events["start"] >= found["start"])
+                    & (events["end"] <= found["end"])]
+    assert len(inside) >= 1
+    t_i = 2 * math.pi / abs(coriolis_parameter(inside["lat"].to_numpy())) / 3600
+    ratio = inside["period_h"].to_numpy() / t_i
+    assert np.all(ratio < 0.95) if spin == "cyclonic" else np.all(ratio > 1.05)
+
+
+def test_quiet_drifters_have_no_slab_motion():
+    from driftloop.synth import truth_events
+
+    sc = ReleaseScenario(name="calm", drifter_ids=("W", "Q"), deploy_lat_deg=(45.0, 45.05),
+                         deploy_lon_deg=(-30.0, -30.0), duration_days=20.0, step_s=1800.0,
+                         initial_slab_speed_m_s=0.2, quiet_drifters=("Q",))
+    release = simulate_release(sc, seed=6)
+    truth = release.truth
+    quiet = truth[truth["drifter_id"] == "Q"]
+    windy = truth[truth["drifter_id"] == "W"]
+    assert np.hypot(quiet["u_slab_m_s"], quiet["v_slab_m_s"]).max() < 1e-9
+    assert np.hypot(quiet["tau_east_pa"], quiet["tau_north_pa"]).max() == 0.0
+    assert np.hypot(windy["u_slab_m_s"], windy["v_slab_m_s"]).max() > 0.1
+    events = truth_events(release)
+    assert set(events["drifter_id"]) == {"W"}
+    # only the mean flow moves it: its velocity is the background current
+    track = quiet.assign(lat=quiet["lat_true"], lon=quiet["lon_true"])
+    u, v, _ = _centred_velocity(track)
+    inner = quiet.iloc[1:-1]
+    assert np.percentile(np.hypot(u - inner["u_mean_m_s"], v - inner["v_mean_m_s"]), 99) < 2e-3
+
+
+@pytest.mark.parametrize("lat", [30.0, -45.0])
+def test_truth_event_of_a_free_oscillation(lat):
+    gsw = pytest.importorskip("gsw")
+    from driftloop.synth import truth_events
+
+    speed = 0.2
+    release = simulate_release(_free(lat, speed=speed, days=5.0), seed=0)
+    events = truth_events(release)
+    assert list(events["kind"]) == ["inertial"]
+    event = events.iloc[0]
+    assert event["start"] == release.truth["time"].iloc[0]
+    assert event["end"] == release.truth["time"].iloc[-1]
+    # TEOS-10 gsw.f: period 2 pi / |f| and radius |V / f| (METHODS.md section 1)
+    f = abs(float(gsw.f(lat)))
+    assert event["period_h"] == pytest.approx(2 * math.pi / f / 3600, rel=1e-4)
+    assert event["speed_m_s"] == pytest.approx(speed, rel=1e-3)
+    assert event["radius_km"] == pytest.approx(speed / f / 1e3, rel=1e-3)
+    assert event["cycles"] == pytest.approx(5 * 86400 * f / (2 * math.pi), rel=1e-3)
+    assert event["spin"] == "anticyclonic"
+
+
+@pytest.fixture(scope="module")
+def evaluation():
+    from driftloop.synth import evaluation_release
+
+    return evaluation_release(seed=0)
+
+
+def test_truth_inertial_periods_match_teos10(evaluation):
+    gsw = pytest.importorskip("gsw")
+    events = evaluation.events
+    plain = evaluation.drifters.loc[evaluation.drifters["eddy_spin"].isna(), "drifter_id"]
+    inertial = events[(events["kind"] == "inertial") & events["drifter_id"].isin(plain)]
+    assert len(inertial) > 50
+    # outside eddies the true period is 2 pi / |f| at the mean latitude (TEOS-10 gsw.f);
+    # the latitude changes by well under a degree within an event, which moves
+    # 2 pi / mean(f) from 2 pi / f(mean lat) by far less than 0.1 %
+    expected_h = 2 * np.pi / np.abs(gsw.f(inertial["lat"].to_numpy())) / 3600
+    np.testing.assert_allclose(inertial["period_h"].to_numpy(), expected_h, rtol=1e-3)
+    f = np.abs(gsw.f(inertial["lat"].to_numpy()))
+    np.testing.assert_allclose(inertial["radius_km"] * 1e3, inertial["speed_m_s"] / f,
+                               rtol=1e-3)
+    assert (inertial["speed_m_s"] >= 0.05).all() and (inertial["cycles"] >= 2).all()
+    assert (inertial["spin"] == "anticyclonic").all()
+
+
+def test_evaluation_release_is_at_sea_and_as_designed(evaluation):
+    from driftloop.landmask import is_land
+
+    truth, drifters, events = evaluation.truth, evaluation.drifters, evaluation.events
+    # no true position on land (1-km GLOBE-derived mask), and none of the fixes
+    assert not is_land(truth["lat_true"], truth["lon_true"]).any()
+    assert not is_land(evaluation.fixes["lat"], evaluation.fixes["lon"]).any()
+    assert len(drifters) == 40 and drifters["drifter_id"].is_unique
+    assert set(drifters["hemisphere"]) == {"north", "south"}
+    lat = truth.groupby("drifter_id")["lat_true"].agg(["min", "max"])
+    assert (lat["max"] < 60).all() and (lat["min"] > -56).all()
+    assert (lat.abs().min(axis=1) > 12).all()
+    assert drifters["quiet"].sum() >= 5
+    for hemisphere in ("north", "south"):
+        spins = drifters.loc[drifters["hemisphere"] == hemisphere, "eddy_spin"].dropna()
+        assert set(spins) == {"cyclonic", "anticyclonic"}
+    assert drifters["days"].between(60, 90).all()
+    # some 6-14 h gaps in the file, as real releases have
+    steps_h = evaluation.fixes.groupby("drifter_id")["time"].apply(
+        lambda s: s.diff().dt.total_seconds().max() / 3600)
+    assert steps_h.between(6, 15).sum() >= 5
+    # quiet drifters: no event of any kind and no slab motion
+    quiet = set(evaluation.quiet_drifters)
+    assert not events["drifter_id"].isin(quiet).any()
+    calm = truth[truth["drifter_id"].isin(quiet)]
+    assert np.hypot(calm["u_slab_m_s"], calm["v_slab_m_s"]).max() < 1e-9
+    assert set(events["kind"]) == {"inertial", "eddy", "tidal"}
+    assert (events["kind"] == "eddy").sum() == drifters["eddy_spin"].notna().sum()
+    # tides well apart from the local inertial period everywhere along the tracks
+    from driftloop.constants import TIDAL_PERIODS_H
+
+    tidal = events[events["kind"] == "tidal"]
+    assert set(tidal["constituent"]) >= {"M2", "K1"}
+    for row in tidal.itertuples():
+        t_i = 2 * np.pi / np.abs(coriolis_parameter(lat.loc[row.drifter_id].to_numpy())) / 3600
+        assert np.all(np.abs(np.log(t_i / TIDAL_PERIODS_H[row.constituent])) > np.log(1.25))
+    # fix_row points into the combined fixes table
+    rows = truth.loc[truth["fix_row"] >= 0, "fix_row"].to_numpy()
+    assert np.array_equal(rows, np.arange(len(evaluation.fixes)))
+
+
+def test_evaluation_release_is_deterministic_for_a_seed(evaluation):
+    from driftloop.synth import evaluation_release
+
+    # one site with the same drifters comes out exactly as in the full release
+    alone = evaluation_release(seed=0, n_drifters=5, sites=["SD"])
+    part = evaluation.fixes[evaluation.fixes["drifter_id"].str.startswith("VEL-SD")]
+    pd.testing.assert_frame_equal(alone.fixes, part.reset_index(drop=True))
+    events = evaluation.events[evaluation.events["drifter_id"].str.startswith("VEL-SD")]
+    pd.testing.assert_frame_equal(alone.events, events.reset_index(drop=True))
+    other = evaluation_release(seed=1, n_drifters=5, sites=["SD"])
+    assert not np.array_equal(other.fixes["lat"].to_numpy()[:100],
+                              alone.fixes["lat"].to_numpy()[:100])
