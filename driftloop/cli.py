@@ -96,6 +96,11 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     _add_input_options(analyse)
+    analyse.add_argument(
+        "--formats", metavar="FORMAT[,...]",
+        help="GIS formats of the layers: geojson (default), gpkg, parquet, csv; "
+        "the CSV tables are always written",
+    )
     qc = commands.add_parser(
         "qc", help="quality-control fixes only",
         description="Read track files and flag every fix on the QARTOD scale "
@@ -104,6 +109,18 @@ def build_parser() -> argparse.ArgumentParser:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     _add_input_options(qc)
+    export = commands.add_parser(
+        "export", help="re-export the layers of a previous run",
+        description="Write the GIS layers of a previous analyse run in other formats, "
+        "from the tables kept in its folder, without recomputing.",
+        epilog="examples:\n  driftloop export runs/orravane_a --formats gpkg,parquet\n",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    export.add_argument("run_dir", metavar="RUN_DIR", help="folder of a previous analyse run")
+    export.add_argument("--formats", metavar="FORMAT[,...]", default="geojson",
+                        help="geojson, gpkg, parquet, csv (default geojson)")
+    export.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    export.add_argument("--debug", action="store_true", help="show tracebacks of errors")
     skill = commands.add_parser(
         "skill", help="score modelled tracks against drifter tracks",
         description="Separation distance and the Liu-Weisberg normalised cumulative "
@@ -305,11 +322,15 @@ def _run(args: argparse.Namespace) -> int:
         return _run_skill(args)
     from driftloop.pipeline import analyse
 
+    if args.command == "export":
+        return _run_export(args)
     config = _make_config(args)
     paths = _expand_inputs(args.inputs)
-    result = analyse(paths, config, progress=not args.quiet)
+    formats = _parse_formats(getattr(args, "formats", None))
+    stages = "qc" if args.command == "qc" else "all"
+    result = analyse(paths, config, progress=not args.quiet, stages=stages)
     _report_row_problems(result.fixes, args.strict, args.quiet)
-    written = result.write(args.out, overwrite=args.overwrite, protect=paths)
+    written = result.write(args.out, overwrite=args.overwrite, protect=paths, formats=formats)
     if not args.quiet:
         release = result.summary["release"]
         flags = release["by_flag"]
@@ -318,10 +339,39 @@ def _run(args: argparse.Namespace) -> int:
             f"{flags['pass']} pass, {flags['suspect']} suspect, {flags['fail']} fail, "
             f"{flags['missing']} missing"
         )
+        loops = result.summary.get("loops")
+        if loops is not None:
+            kinds = ", ".join(f"{n} {k}" for k, n in loops["by_kind"].items())
+            print(f"{loops['events']} loop events: {kinds}")
         for note in release["notes"]:
             print(f"note: {note}")
-        print("wrote " + ", ".join(str(p) for p in written))
+        print(f"wrote {len(written)} files to {args.out}")
         print(CAUTION_SHORT)
+    return 0
+
+
+def _parse_formats(text: str | None) -> list[str]:
+    from driftloop.export import FORMATS
+
+    if not text:
+        return ["geojson"]
+    formats = [item.strip().lower() for item in text.split(",") if item.strip()]
+    unknown = [f for f in formats if f not in FORMATS]
+    if unknown or not formats:
+        raise ConfigError(
+            f"--formats: unknown format {', '.join(unknown) or '(none)'}; "
+            f"choose from {', '.join(FORMATS)}"
+        )
+    return formats
+
+
+def _run_export(args: argparse.Namespace) -> int:
+    from driftloop.pipeline import export_previous_run
+
+    formats = _parse_formats(args.formats)
+    written = export_previous_run(args.run_dir, formats)
+    if not args.quiet:
+        print(f"wrote {len(written)} files to {args.run_dir}")
     return 0
 
 

@@ -27,9 +27,11 @@ from pathlib import Path
 from typing import Any
 
 from driftloop.errors import ConfigError
+from driftloop.wavelet import WaveletConfig
 
 __all__ = [
     "Config",
+    "LoopConfig",
     "QCConfig",
     "ReadConfig",
     "ResampleConfig",
@@ -298,6 +300,48 @@ class SkillConfig:
 
 
 @dataclass(frozen=True)
+class LoopConfig:
+    """Merging and classification of loop events (see :mod:`driftloop.loops`).
+
+    Attributes
+    ----------
+    merge_period_tolerance : float
+        Largest fractional period difference for two ridges of the same
+        sense to be joined into one event.
+    merge_gap_periods : float
+        Largest time between two such ridges, in periods, for them to be
+        joined (covers short gaps and segment breaks).
+    tidal_tolerance : float
+        Largest fractional distance from the M2, S2, K1 or O1 period for an
+        event to be tidal.
+    tidal_inertial_separation : float
+        A tidal period counts only where it differs from the local inertial
+        period by more than this fraction.
+    inertial_period_ratio_min, inertial_period_ratio_max : float
+        Band of period / inertial period for inertial events; wide enough
+        for the vorticity shift f + zeta/2 of near-inertial motion (Kunze
+        1985).
+    inertial_radius_ratio_min, inertial_radius_ratio_max : float
+        Band of the position-based radius / |V/f| for inertial events.
+    eddy_period_ratio_min : float
+        Period / inertial period from which looping is taken as an eddy.
+    equator_band_deg : float
+        No event within this many degrees of the equator is called inertial.
+    """
+
+    merge_period_tolerance: float = 0.15
+    merge_gap_periods: float = 1.0
+    tidal_tolerance: float = 0.03
+    tidal_inertial_separation: float = 0.15
+    inertial_period_ratio_min: float = 0.85
+    inertial_period_ratio_max: float = 1.15
+    inertial_radius_ratio_min: float = 0.5
+    inertial_radius_ratio_max: float = 2.0
+    eddy_period_ratio_min: float = 1.5
+    equator_band_deg: float = 5.0
+
+
+@dataclass(frozen=True)
 class Config:
     """Configuration of a whole run: one section per stage.
 
@@ -309,6 +353,11 @@ class Config:
         Quality-control thresholds.
     skill : SkillConfig
         Model-vs-drifter trajectory skill.
+    loops : LoopConfig
+        Merging and classification of loop events.
+    wavelet : WaveletConfig
+        Morse wavelet transform, ridges and significance
+        (:class:`driftloop.wavelet.WaveletConfig`).
     resample : ResampleConfig
         Resampling onto a uniform time grid.
     """
@@ -316,6 +365,8 @@ class Config:
     read: ReadConfig = field(default_factory=ReadConfig)
     qc: QCConfig = field(default_factory=QCConfig)
     skill: SkillConfig = field(default_factory=SkillConfig)
+    loops: LoopConfig = field(default_factory=LoopConfig)
+    wavelet: WaveletConfig = field(default_factory=WaveletConfig)
     resample: ResampleConfig = field(default_factory=ResampleConfig)
 
     def replace(self, section: str, **changes: Any) -> Config:

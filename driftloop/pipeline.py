@@ -1,12 +1,16 @@
 """The analysis pipeline: the only module that knows the order of the stages.
 
-Stages so far: read → QC → accounting.  Each drifter goes through QC on its
-own (the tests never look across drifters), which keeps memory bounded by
-the longest drifter and lets later stages run drifters in parallel.
+Stages: read -> QC -> resample -> wavelet ridges and loop events -> rotary
+spectra -> accounting -> writers.  Each drifter goes through QC on its own
+(the tests never look across drifters), which keeps memory bounded by the
+longest drifter and lets the stages run drifters in parallel.
+
+``driftloop qc`` stops after QC; ``driftloop analyse`` runs every stage.
 """
 
 from __future__ import annotations
 
+import json
 import os
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
@@ -61,12 +65,23 @@ class Analysis:
         The configuration used.
     inputs : list of dict
         One entry per input file: its name and the number of rows read.
+    track : pandas.DataFrame or None
+        Resampled tracks (:data:`driftloop.resample.RESAMPLED_COLUMNS`);
+        ``None`` when only QC ran.
+    events : pandas.DataFrame or None
+        Loop events (:data:`driftloop.loops.EVENT_COLUMNS`).
+    spectra : pandas.DataFrame or None
+        Rotary spectra per drifter and for the release
+        (:func:`driftloop.spectra.rotary_spectra`).
     """
 
     fixes: pd.DataFrame
     summary: dict
     config: Config
     inputs: list[dict] = field(default_factory=list)
+    track: pd.DataFrame | None = None
+    events: pd.DataFrame | None = None
+    spectra: pd.DataFrame | None = None
 
     @property
     def drifters(self) -> list[str]:
@@ -96,9 +111,26 @@ class Analysis:
         geometry[~valid] = None
         return gpd.GeoDataFrame(fixes.copy(), geometry=geometry, crs="EPSG:4326")
 
+    def tables(self) -> dict[str, pd.DataFrame]:
+        """Return the tables the GIS export takes: fixes, tracks and events.
+
+        Returns
+        -------
+        dict of str to pandas.DataFrame
+            Keys ``"fixes"`` and, after a full analysis, ``"tracks"`` and
+            ``"events"``.
+        """
+        tables = {"fixes": self.fixes.loc[:, list(FIXES_CSV_COLUMNS)]}
+        if self.track is not None:
+            tables["tracks"] = self.track
+        if self.events is not None:
+            tables["events"] = self.events
+        return tables
+
     def write(self, out_dir: str | Path, *, overwrite: bool = False,
-              protect: Sequence[str | Path] = ()) -> list[Path]:
-        """Write ``fixes.csv``, ``summary.json`` and the run provenance.
+              protect: Sequence[str | Path] = (),
+              formats: Sequence[str] = ("geojson",)) -> list[Path]:
+        """Write every output of the run into a folder, each file atomically.
 
         Parameters
         ----------
@@ -108,26 +140,58 @@ class Analysis:
             Allow writing into a non-empty folder that is not a driftloop run.
         protect : sequence of path
             Files that must never be overwritten (the inputs).
+        formats : sequence of str
+            GIS formats of the layers: any of ``"geojson"``, ``"gpkg"``,
+            ``"parquet"``; the CSV tables are always written.
 
         Returns
         -------
         list of Path
-            The files written.
+            The files written; ``provenance.json`` last.
         """
         out = prepare_out_dir(out_dir, overwrite=overwrite)
-        targets = {
-            "fixes": out / "fixes.csv",
-            "fixes_meta": out / "fixes.csv-metadata.json",
-            "summary": out / "summary.json",
-            "provenance": out / RUN_MARKER,
-        }
-        _refuse_overwriting_inputs(targets.values(), protect)
+        targets = [out / name for name in OUTPUT_NAMES]
+        _refuse_overwriting_inputs(targets, protect)
+        written = []
         table = self.fixes.loc[:, list(FIXES_CSV_COLUMNS)]
-        write_csv(targets["fixes"], table)
-        write_json(targets["fixes_meta"], _csv_metadata("fixes.csv", self.config))
-        write_json(targets["summary"], self.summary)
-        write_json(targets["provenance"], _run_provenance(self.config, self.inputs))
-        return list(targets.values())
+        write_csv(out / "fixes.csv", table)
+        write_json(out / "fixes.csv-metadata.json", _csv_metadata("fixes.csv", self.config))
+        written += [out / "fixes.csv", out / "fixes.csv-metadata.json"]
+        info = provenance(self.config)
+        if self.track is not None:
+            from driftloop.export import export_run
+            from driftloop.io.trajectory_nc import write_trajectories_nc
+
+            gis = [f for f in formats if f != "csv"]
+            written += export_run(self.tables(), out, formats=[*gis, "csv"], provenance=info)
+            written.append(write_trajectories_nc(
+                out / "resampled.nc", self.track,
+                {"driftloop_provenance": json.dumps(info, sort_keys=True)},
+            ))
+        if self.spectra is not None:
+            from driftloop.export.formats import write_table_csv
+
+            written += write_table_csv(
+                out / "spectra.csv", self.spectra,
+                description="Rotary (Welch) spectra of the resampled velocities, per drifter "
+                "and for the release; PSD in (m/s)^2 per cycle per day.",
+                provenance=info,
+            )
+        write_json(out / "summary.json", self.summary)
+        write_json(out / RUN_MARKER, _run_provenance(self.config, self.inputs))
+        written += [out / "summary.json", out / RUN_MARKER]
+        return written
+
+
+#: Names of every file a run may write (checked against the inputs before writing).
+OUTPUT_NAMES = (
+    "fixes.csv", "fixes.csv-metadata.json", "summary.json", RUN_MARKER,
+    "resampled.csv", "resampled.csv-metadata.json", "resampled.nc",
+    "loops.csv", "loops.csv-metadata.json", "spectra.csv", "spectra.csv-metadata.json",
+    "fixes.geojson", "tracks.geojson", "loops.geojson", "loop_centres.geojson",
+    "loop_shapes.geojson", "driftloop.gpkg", "fixes.parquet", "tracks.parquet",
+    "loops.parquet", "loop_centres.parquet", "loop_shapes.parquet",
+)
 
 
 def prepare_out_dir(out_dir: str | Path, *, overwrite: bool = False) -> Path:
@@ -245,11 +309,57 @@ def qc_fixes(
     return pd.concat(parts).loc[fixes.index]
 
 
+def _progress_factory(progress: bool, n: int, desc: str):
+    if not progress or n < PROGRESS_MIN_DRIFTERS:
+        return None
+    from tqdm import tqdm
+
+    def wrap(iterable: Iterable) -> Iterable:
+        return tqdm(iterable, total=n, desc=desc, unit="drifter", leave=False, disable=None)
+
+    return wrap
+
+
+def read_inputs(
+    inputs: str | Path | Sequence[str | Path] | pd.DataFrame, config: Config
+) -> tuple[pd.DataFrame, list[dict]]:
+    """Read the inputs of a run into one fixes table.
+
+    Parameters
+    ----------
+    inputs : path, sequence of paths, or pandas.DataFrame
+        Track files, or a fixes table already read.
+    config : Config
+        Configuration (its ``read`` section is used).
+
+    Returns
+    -------
+    tuple
+        The fixes table and one ``{"file", "rows"}`` entry per input file.
+    """
+    if isinstance(inputs, pd.DataFrame):
+        fixes = inputs.loc[:, list(FIX_COLUMNS)].reset_index(drop=True)
+        files = fixes["source_file"].astype(str)
+        info = [{"file": f, "rows": int(n)} for f, n in files.value_counts(sort=False).items()]
+        return fixes, info
+    paths = [inputs] if isinstance(inputs, str | Path) else list(inputs)
+    # outputs must not depend on the order the files were named in
+    paths = sorted(paths, key=str)
+    tables, info = [], []
+    for path in paths:
+        table = read_file(path, config.read)
+        tables.append(table)
+        info.append({"file": str(path), "rows": len(table)})
+    fixes = pd.concat(tables, ignore_index=True) if tables else empty_fixes()
+    return fixes, info
+
+
 def analyse(
     inputs: str | Path | Sequence[str | Path] | pd.DataFrame,
     config: Config | None = None,
     *,
     progress: bool = False,
+    stages: str = "all",
 ) -> Analysis:
     """Run every stage of driftloop on track files or on a fixes table.
 
@@ -262,11 +372,13 @@ def analyse(
         Configuration; defaults to :class:`Config()`.
     progress : bool
         Show a progress bar over drifters when there are many.
+    stages : {"all", "qc"}
+        ``"qc"`` stops after quality control.
 
     Returns
     -------
     Analysis
-        The flagged fixes and the summary.
+        The flagged fixes, resampled tracks, loop events, spectra and summary.
 
     Raises
     ------
@@ -280,29 +392,140 @@ def analyse(
     >>> result.summary["release"]["by_flag"]  # doctest: +SKIP
     """
     config = config or Config()
-    if isinstance(inputs, pd.DataFrame):
-        fixes = inputs.loc[:, list(FIX_COLUMNS)].reset_index(drop=True)
-        files = fixes["source_file"].astype(str)
-        info = [{"file": f, "rows": int(n)} for f, n in files.value_counts(sort=False).items()]
-    else:
-        paths = [inputs] if isinstance(inputs, str | Path) else list(inputs)
-        # outputs must not depend on the order the files were named in
-        paths = sorted(paths, key=str)
-        tables, info = [], []
-        for path in paths:
-            table = read_file(path, config.read)
-            tables.append(table)
-            info.append({"file": str(path), "rows": len(table)})
-        fixes = pd.concat(tables, ignore_index=True) if tables else empty_fixes()
-    wrap = None
-    if progress and fixes["drifter_id"].nunique() >= PROGRESS_MIN_DRIFTERS:
-        from tqdm import tqdm
-
-        n = int(fixes["drifter_id"].nunique())
-
-        def wrap(iterable: Iterable) -> Iterable:
-            return tqdm(iterable, total=n, desc="QC", unit="drifter", leave=False, disable=None)
-
-    flagged = qc_fixes(fixes, config, progress=wrap)
+    fixes, info = read_inputs(inputs, config)
+    n_drifters = int(fixes["drifter_id"].nunique())
+    flagged = qc_fixes(fixes, config, progress=_progress_factory(progress, n_drifters, "QC"))
     summary = build_summary(flagged, config, info)
-    return Analysis(fixes=flagged, summary=summary, config=config, inputs=info)
+    result = Analysis(fixes=flagged, summary=summary, config=config, inputs=info)
+    if stages == "qc":
+        return result
+    if stages != "all":
+        raise ValueError(f"stages must be 'all' or 'qc', got {stages!r}")
+
+    from driftloop.loops import find_events
+    from driftloop.resample import resample_all
+    from driftloop.spectra import inertial_peak_check, rotary_spectra
+
+    resampled = resample_all(flagged, config.resample, config.qc.gps_noise_m)
+    catalogue = find_events(
+        resampled.track, config.loops, config.wavelet,
+        progress=_progress_factory(progress, n_drifters, "loops"),
+    )
+    spectra = rotary_spectra(resampled.track)
+    check = inertial_peak_check(spectra, resampled.track,
+                                equator_band_deg=config.loops.equator_band_deg)
+    _add_stage_summaries(summary, resampled, catalogue, check)
+    result.track = resampled.track
+    result.events = catalogue.events
+    result.spectra = spectra.table
+    return result
+
+
+def _add_stage_summaries(summary: dict, resampled, catalogue, check: dict) -> None:
+    """Put the resampling, loop and spectral results into the summary."""
+    track = resampled.track
+    events = catalogue.events
+    kinds = ("inertial", "eddy", "tidal", "other")
+    summary["resample"] = {
+        "points": int(len(track)),
+        "segments": int(track.groupby(["drifter_id", "segment"], observed=True).ngroups),
+        "points_in_gaps": int(track["in_gap"].sum()),
+        "dropped_segments": resampled.dropped,
+    }
+    summary["loops"] = {
+        "ridges": catalogue.ridges,
+        "events": int(len(events)),
+        "by_kind": {k: int((events["kind"] == k).sum()) for k in kinds},
+        "notes": catalogue.notes,
+    }
+    for drifter, entry in summary["drifters"].items():
+        mine = events[events["drifter_id"] == drifter]
+        entry["events"] = {k: int((mine["kind"] == k).sum()) for k in kinds}
+        entry["resampled_points"] = int((track["drifter_id"] == drifter).sum())
+        entry["dropped_segments"] = sum(
+            1 for d in resampled.dropped if d["drifter_id"] == drifter
+        )
+        entry["inertial_peak"] = check.get(
+            drifter, {"checked": False, "reason": "no resampled segment"}
+        )
+    checked = [c for c in check.values() if c.get("checked")]
+    summary["release"]["inertial_peak_check"] = {
+        "drifters_checked": len(checked),
+        "within_tolerance": sum(1 for c in checked if c["within_tolerance"]),
+        "tolerance": 0.15,
+    }
+    summary["release"]["notes"].extend(catalogue.notes)
+
+
+def load_run(run_dir: str | Path) -> dict[str, pd.DataFrame]:
+    """Read back the tables of a previous run folder.
+
+    Parameters
+    ----------
+    run_dir : str or Path
+        Folder written by ``driftloop analyse``.
+
+    Returns
+    -------
+    dict of str to pandas.DataFrame
+        ``"fixes"`` and, where the run wrote them, ``"tracks"`` (from
+        ``resampled.csv``) and ``"events"`` (from ``loops.csv``), with the
+        dtypes the export expects.
+
+    Raises
+    ------
+    InputError
+        If the folder is not a driftloop run or a table is missing.
+    """
+    run = Path(run_dir)
+    if not (run / RUN_MARKER).is_file():
+        raise InputError(str(run), "not a driftloop run folder (no provenance.json)")
+    if not (run / "fixes.csv").is_file():
+        raise InputError(str(run), "the run folder has no fixes.csv")
+    text = {"drifter_id": "string", "qc_reasons": "string", "raw": "string",
+            "source_file": "string", "event_id": "string", "kind": "string", "spin": "string",
+            "sense": "string", "tide": "string"}
+
+    def read(name: str, times: Sequence[str]) -> pd.DataFrame:
+        table = pd.read_csv(run / name, dtype={k: v for k, v in text.items()},
+                            keep_default_na=False, na_values={"lat": [""], "lon": [""]})
+        for column in table.columns:
+            if column in text:
+                continue
+            if table[column].dtype == object:
+                table[column] = pd.to_numeric(table[column].replace("", None), errors="ignore")
+        for column in times:
+            table[column] = pd.to_datetime(table[column].replace("", None), utc=True)
+        return table
+
+    tables = {"fixes": read("fixes.csv", ["time"])}
+    if (run / "resampled.csv").is_file():
+        tables["tracks"] = read("resampled.csv", ["time"])
+    if (run / "loops.csv").is_file():
+        tables["events"] = read("loops.csv", ["start", "end"])
+    return tables
+
+
+def export_previous_run(run_dir: str | Path, formats: Sequence[str]) -> list[Path]:
+    """Re-export the GIS layers of a previous run without recomputing.
+
+    Parameters
+    ----------
+    run_dir : str or Path
+        Folder written by ``driftloop analyse``.
+    formats : sequence of str
+        Any of ``"geojson"``, ``"gpkg"``, ``"parquet"``, ``"csv"``.
+
+    Returns
+    -------
+    list of Path
+        The files written.
+    """
+    import json as _json
+
+    from driftloop.export import export_run
+
+    tables = load_run(run_dir)
+    info = _json.loads((Path(run_dir) / RUN_MARKER).read_text(encoding="utf-8"))
+    info = {k: info[k] for k in ("software", "version", "parameters") if k in info}
+    return export_run(tables, run_dir, formats=formats, provenance=info)

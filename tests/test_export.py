@@ -630,14 +630,14 @@ def test_csv_tables_with_sidecars_and_fixes_csv_untouched(tmp_path, tables):
     (out / "fixes.csv").write_text("written by the pipeline\n")
     written = export_run(tables, out, formats=("csv",), provenance=PROVENANCE)
     assert [p.name for p in written] == [
-        "tracks.csv", "tracks.csv-metadata.json", "loops.csv", "loops.csv-metadata.json"]
+        "resampled.csv", "resampled.csv-metadata.json", "loops.csv", "loops.csv-metadata.json"]
     assert (out / "fixes.csv").read_text() == "written by the pipeline\n"
     loops = pd.read_csv(out / "loops.csv")
     assert loops["event_id"].tolist() == ["E1", "E2", "E3", "E4"]
     assert loops["start"].iloc[0] == "2026-03-01T06:00:00Z"
-    tracks = pd.read_csv(out / "tracks.csv")
+    tracks = pd.read_csv(out / "resampled.csv")
     assert len(tracks) == len(tables["tracks"])
-    meta = json.loads((out / "tracks.csv-metadata.json").read_text())
+    meta = json.loads((out / "resampled.csv-metadata.json").read_text())
     columns = {c["name"]: c for c in meta["tableSchema"]["columns"]}
     assert list(columns) == list(tables["tracks"].columns)
     assert columns["in_gap"]["datatype"] == "boolean"

@@ -17,7 +17,7 @@ new one, never a half-written file.  Every file records the run provenance
   :meth:`geopandas.GeoDataFrame.to_parquet` (``geo`` file metadata with the
   CRS as PROJJSON, geometries as WKB), with the provenance as JSON under the
   file metadata key ``driftloop``;
-- CSV: the tracks table as ``tracks.csv`` and the loop catalogue as
+- CSV: the tracks table as ``resampled.csv`` and the loop catalogue as
   ``loops.csv`` (times ISO 8601 with ``Z``), each with a W3C CSVW sidecar
   ``<name>-metadata.json`` listing the columns, their types and units, and
   the provenance.  ``fixes.csv`` belongs to the pipeline and is not written
@@ -71,7 +71,7 @@ GPKG_NAME = "driftloop.gpkg"
 GPKG_VERSION = "1.3"
 
 #: Tables written as CSV: table name -> file name.
-CSV_TABLES = {"tracks": "tracks.csv", "events": "loops.csv"}
+CSV_TABLES = {"tracks": "resampled.csv", "events": "loops.csv"}
 
 #: Geometry type of each layer in the GeoPackage (singles promoted to Multi*).
 _GPKG_GEOMETRY = {
@@ -303,7 +303,7 @@ def export_run(
         Any of :data:`FORMATS`: ``"geojson"`` writes ``<layer>.geojson``
         per layer; ``"gpkg"`` writes every layer into ``driftloop.gpkg``;
         ``"parquet"`` writes ``<layer>.parquet`` per layer; ``"csv"`` writes
-        ``tracks.csv`` and ``loops.csv`` (with CSVW sidecars) for the tables
+        ``resampled.csv`` and ``loops.csv`` (with CSVW sidecars) for the tables
         given (never ``fixes.csv``, which the pipeline writes).
     provenance : dict, optional
         Parameters and version of the run, recorded in every file.

@@ -1,0 +1,481 @@
+"""Is a ridge more than background noise?  Background fit, noise levels, calibration.
+
+A ridge is kept only if a ridge at least as strong and long is rare in
+Gaussian noise that has the segment's own smooth background spectrum, in
+the spirit of Lilly & Perez-Brunius (2021), who compare ridges of each
+trajectory with those of a matched stochastic surrogate.  Here the
+comparison is done analytically per scale and by a single simulation that
+is the same for every segment.
+
+Method
+------
+1. **Background spectrum.**  :func:`fit_background` fits, for each rotary
+   sense separately, a smooth red spectrum to the segment's rotary
+   periodogram S(omega) (mean removed; +omega counter-clockwise, -omega
+   clockwise; Gonella 1972): the periodogram is averaged in quarter-octave
+   bins of |omega| from two cycles per record to the Nyquist frequency, and
+   ln S is fitted by penalised weighted least squares with a function that is
+   piecewise linear in ln |omega| between knots one octave apart (power
+   laws, a Matern-like low-frequency flattening and a high-frequency noise
+   floor all fit).  The bin average of m independent exponential
+   periodogram values has E[ln] = ln S + digamma(m) - ln m and Var[ln] =
+   trigamma(m) (*derived*); the fit removes the bias and weights by the
+   variance.  Peaks are excluded iteratively: bins more than three standard
+   deviations above the fit are dropped and the fit repeated.  The fit is
+   held constant beyond its first and last knot.
+
+2. **Noise level per scale** (*derived*).  For Gaussian noise with spectral
+   density S the rotary transform W+(t, s) = W[z]/2 is a sum of Fourier
+   coefficients at positive frequencies only, hence circular complex
+   Gaussian even if u and v have different variances (terms pairing
+   +omega with -omega vanish), so |W+|^2 is exponential (chi-square with two
+   degrees of freedom, scaled) with mean
+
+       sigma_+^2(s) = (1/4) integral_0^pi/dt S(+omega) Psi(s omega)^2 d omega / 2 pi,
+
+   and the same with S(-omega) for W-.  :func:`noise_variance` evaluates the
+   integral on the FFT grid of the transform.
+
+3. **Ridge statistic.**  Ridge points must reach |W| >= ``min_point_snr``
+   sigma.  Each chained ridge gets E = sum snr^2 dt / T (T the refined scale
+   period), the noise-normalised power integrated over its length in
+   cycles: a steady oscillation of power ratio q over L cycles has E = q L.
+
+4. **Calibration.**  In units of cycles and ln-scale the normalised noise
+   W / sigma is nearly the same at every scale, so the duration of noise
+   ridges with E >= c per unit time and unit ln-scale is a function D(c) of
+   the threshold.  :func:`calibrate` measures it once by simulation:
+   records of complex white and AR(1) red Gaussian noise (``CALIBRATION_AR``,
+   fixed seed) go through exactly the same steps, including the background
+   fit.  D is kept per period band (the first two octaves above
+   ``min_period_samples``, where the Nyquist frequency cuts the wavelet, and
+   all longer periods).  For a segment of analysed area A (both senses, the
+   scales that can hold ridge points, each weighted by its unmasked fraction
+   of the record, times the ln-scale spacing; :func:`analysed_area`) the
+   expected fraction of its duration covered by false ridges is sum over
+   bands of D_b(c_b) A_b; :func:`statistic_threshold` sets every band to the
+   density ``false_positive_rate`` / A, taking the largest threshold any of
+   the noise processes needs.  D is fitted as exponential in c over its
+   upper tail.  The calibration is cached for the process (a few seconds per
+   distinct set of wavelet and ridge parameters).
+   ``tests/test_significance.py`` checks the resulting rate on white and
+   red noise.
+
+References
+----------
+Gonella, J., 1972: A rotary-component method for analysing meteorological
+and oceanographic vector time series.  Deep-Sea Res., 19, 833-846.
+
+Lilly, J. M., and P. Perez-Brunius, 2021: Extracting statistically
+significant eddy signals from large Lagrangian datasets using wavelet ridge
+analysis.  Nonlin. Processes Geophys., 28, 181- (method as summarised in
+its abstract; details from memory).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import functools
+import math
+from typing import NamedTuple
+
+import numpy as np
+from scipy.signal import lfilter
+from scipy.special import digamma, polygamma
+
+from driftloop.wavelet import RotaryTransform, WaveletConfig, rotary_transform, wavelet_table
+
+__all__ = [
+    "NoiseCalibration",
+    "RotaryBackground",
+    "analysed_area",
+    "calibrate",
+    "fit_background",
+    "noise_variance",
+    "statistic_threshold",
+]
+
+#: Width of the periodogram bins of the background fit (octaves).
+BIN_OCTAVES = 0.25
+#: Bins this many standard deviations above the fit count as peaks.
+PEAK_SIGMA = 3.0
+#: Weight of the second-difference penalty on the knot values of the fit.
+SMOOTHING = 1.0
+#: Calibration: number and length of the simulated white-noise records.
+CALIBRATION_RECORDS = 16
+CALIBRATION_LENGTH = 4096
+#: Calibration: noise processes, complex AR(1) with these coefficients
+#: (0: white; the others are red with their knee at about 2 pi / (1 - a)
+#: samples, i.e. 21, 31 and 63, inside the calibrated band).
+CALIBRATION_AR = (0.0, 0.7, 0.8, 0.9)
+#: Calibration: number of period bands (octaves from ``min_period_samples``,
+#: the last one open-ended) and the longest period simulated (sample intervals).
+CALIBRATION_BANDS = 3
+CALIBRATION_MAX_PERIOD = 80.0
+CALIBRATION_SEED = 20210401
+
+
+class RotaryBackground(NamedTuple):
+    """Smooth background spectrum of both rotary senses.
+
+    ln S(+-omega) is piecewise linear in x = ln |omega| between knots one
+    octave apart, constant beyond the first and last knot.
+
+    Attributes
+    ----------
+    knots : numpy.ndarray
+        Knot positions x = ln(|omega| / (rad/s)), increasing.
+    log_density : numpy.ndarray
+        (2, K) ln S at the knots: row 0 counter-clockwise (omega > 0),
+        row 1 clockwise.
+    """
+
+    knots: np.ndarray
+    log_density: np.ndarray
+
+    def density(self, omega_rad_s: np.ndarray) -> np.ndarray:
+        """Return the background spectral density at signed frequencies.
+
+        Parameters
+        ----------
+        omega_rad_s : array_like
+            Angular frequency (rad/s), > 0 counter-clockwise, < 0 clockwise.
+
+        Returns
+        -------
+        numpy.ndarray
+            S (m^2/s^2 per rad/s), normalised so that the integral of
+            S d omega / 2 pi is the variance of z.
+        """
+        w = np.asarray(omega_rad_s, dtype=float)
+        x = np.log(np.maximum(np.abs(w), _TINY))
+        ccw = np.interp(x, self.knots, self.log_density[0])
+        cw = np.interp(x, self.knots, self.log_density[1])
+        return np.exp(np.where(w < 0, cw, ccw))
+
+
+_TINY = 1e-300
+
+
+def _hat_basis(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
+    """Linear-interpolation (hat function) basis at x, shape (len(x), len(knots))."""
+    eye = np.eye(len(knots))
+    return np.stack([np.interp(x, knots, eye[k]) for k in range(len(knots))], axis=1)
+
+
+def _fit_one(y: np.ndarray, m: np.ndarray, basis: np.ndarray) -> np.ndarray:
+    y = y - (digamma(m) - np.log(m))
+    var = polygamma(1, m)
+    sd = np.sqrt(var)
+    k = basis.shape[1]
+    diff2 = np.diff(np.eye(k), 2, axis=0) if k > 2 else np.zeros((0, k))
+    penalty = SMOOTHING * diff2.T @ diff2
+    use = np.ones(len(y), dtype=bool)
+    coef = np.full(k, np.average(y, weights=1.0 / var))
+    for _ in range(8):
+        wb = basis[use] / var[use, None]
+        normal = basis[use].T @ wb + penalty + 1e-9 * np.eye(k)
+        coef = np.linalg.solve(normal, wb.T @ y[use])
+        new = (y - basis @ coef) <= PEAK_SIGMA * sd
+        if new.sum() < 3 or np.array_equal(new, use):
+            break
+        use = new
+    return coef
+
+
+def fit_background(transform: RotaryTransform) -> RotaryBackground:
+    """Fit the smooth red background of each rotary sense of a segment.
+
+    Parameters
+    ----------
+    transform : RotaryTransform
+        Carries the segment's rotary periodogram.
+
+    Returns
+    -------
+    RotaryBackground
+        Piecewise-linear fit of ln S in ln |omega| per sense, peaks excluded.
+
+    Notes
+    -----
+    Method in the module docstring (:mod:`driftloop.significance`).
+    """
+    n = transform.n_samples
+    dt = transform.dt_s
+    omega = transform.omega_rad_s
+    x_lo = math.log(2.0 * 2.0 * math.pi / (n * dt))
+    x_hi = math.log(math.pi / dt)
+    width = BIN_OCTAVES * math.log(2.0)
+    edges = np.arange(x_lo, x_hi + 1e-12, width)
+    if len(edges) < 2:
+        edges = np.array([x_lo, x_hi])
+    n_knots = max(2, int(math.ceil((x_hi - x_lo) / math.log(2.0) - 1e-9)) + 1)
+    knots = np.linspace(x_lo, x_hi, n_knots)
+    which = np.digitize(np.log(omega), edges) - 1
+    valid = (which >= 0) & (which < len(edges) - 1)
+    counts = np.bincount(which[valid], minlength=len(edges) - 1).astype(float)
+    centres = 0.5 * (edges[:-1] + edges[1:])
+    have = counts > 0
+    log_density = np.full((2, n_knots), math.log(_TINY))
+    basis = _hat_basis(centres[have], knots)
+    m = np.maximum(counts[have] * n / transform.n_fft, 1.0)
+    for s in (0, 1):
+        spec = transform.spectrum[s]
+        total = float(np.sum(spec))
+        if not total > 0 or have.sum() == 0:
+            continue
+        sums = np.bincount(which[valid], weights=spec[valid], minlength=len(edges) - 1)
+        mean = sums[have] / counts[have]
+        y = np.log(np.maximum(mean, total * 1e-30))
+        log_density[s] = _fit_one(y, m, basis)
+    return RotaryBackground(knots, log_density)
+
+
+def noise_variance(background: RotaryBackground, transform: RotaryTransform) -> np.ndarray:
+    """Return the expected |W+-|^2 of Gaussian background noise at every scale.
+
+    Parameters
+    ----------
+    background : RotaryBackground
+        Background spectrum.
+    transform : RotaryTransform
+        Gives the scales, the FFT grid and the wavelet.
+
+    Returns
+    -------
+    numpy.ndarray
+        (2, J): sigma_+^2 (row 0) and sigma_-^2 (row 1), (m/s)^2,
+        (1/4) sum_k S(+-omega_k) Psi(s_j omega_k)^2 / (n_fft dt) (*derived*,
+        the discrete form of the integral in the module docstring).
+    """
+    dt = transform.dt_s
+    periods = transform.periods_s / dt
+    table = wavelet_table(transform.n_fft, periods, transform.config)
+    omega = transform.omega_rad_s
+    dens = np.stack((background.density(omega), background.density(-omega)))
+    sq = np.square(table, dtype=float)
+    return np.einsum("jk,sk->sj", sq, dens) / (4.0 * transform.n_fft * dt)
+
+
+def analysed_area(transform: RotaryTransform) -> float:
+    """Return the time-scale area A in which ridge points can occur.
+
+    Parameters
+    ----------
+    transform : RotaryTransform
+        The transform.
+
+    Returns
+    -------
+    float
+        2 x sum over scales j = 1 .. J-2 of (unmasked fraction of the
+        record) x ln 2 / periods_per_octave (both senses; dimensionless).
+    """
+    n = transform.n_samples
+    if transform.w_ccw.shape[0] < 3 or n == 0:
+        return 0.0
+    inner = np.maximum(n - 2 * transform.coi[1:-1], 0) / n
+    return float(2.0 * inner.sum() * math.log(2.0) / transform.config.periods_per_octave)
+
+
+class NoiseCalibration(NamedTuple):
+    """Noise-ridge statistics from the calibration simulation, per period band.
+
+    Attributes
+    ----------
+    band_edges : numpy.ndarray
+        Edges of the period bands (sample intervals), increasing; the last
+        band extends to all longer periods.
+    statistic : tuple of numpy.ndarray
+        Per noise process (``CALIBRATION_AR``) and band, process-major, E of
+        every simulated noise ridge in the band, decreasing.
+    density : tuple of numpy.ndarray
+        Same layout, D(E >= statistic[i]): duration of noise ridges with at
+        least that E per unit duration and unit analysed area of the band.
+    n_records : int
+        Number of simulated records per process.
+    """
+
+    band_edges: np.ndarray
+    statistic: tuple
+    density: tuple
+    n_records: int
+
+    def band(self, period_samples: np.ndarray) -> np.ndarray:
+        """Return the band index of ridges of the given (geometric-mean) periods."""
+        return np.clip(np.searchsorted(self.band_edges, period_samples, side="right") - 1,
+                       0, len(self.band_edges) - 1)
+
+
+def _calibration_config(config: WaveletConfig) -> WaveletConfig:
+    return dataclasses.replace(config, amplitude_floor_m_s=0.0, significance=True,
+                               max_period_s=CALIBRATION_MAX_PERIOD, bias_correction=False,
+                               fft_workers=1, false_positive_rate=1.0, dtype="float64",
+                               coi_factor=None, coi_edge_error=0.01)
+
+
+def _band_areas(transform: RotaryTransform, edges: np.ndarray) -> np.ndarray:
+    n = transform.n_samples
+    per = transform.periods_s[1:-1] / transform.dt_s
+    inner = np.maximum(n - 2 * transform.coi[1:-1], 0) / n
+    inner = inner * 2.0 * math.log(2.0) / transform.config.periods_per_octave
+    band = np.clip(np.searchsorted(edges, per, side="right") - 1, 0, len(edges) - 1)
+    return np.bincount(band, weights=inner, minlength=len(edges))
+
+
+def chain_periods(cand, config: WaveletConfig) -> np.ndarray:
+    """Return the geometric-mean scale period (sample intervals) of each candidate chain.
+
+    Parameters
+    ----------
+    cand : driftloop.ridges.Candidates
+        Chained ridge points.
+    config : WaveletConfig
+        Gives the period grid.
+
+    Returns
+    -------
+    numpy.ndarray
+        One period per chain.
+    """
+    mean_x = np.add.reduceat(cand.x, cand.starts[:-1]) / np.diff(cand.starts)
+    return config.min_period_samples * 2.0 ** (mean_x / config.periods_per_octave)
+
+
+def _noise_record(rng: np.random.Generator, ar: float) -> np.ndarray:
+    z = (rng.standard_normal(CALIBRATION_LENGTH)
+         + 1j * rng.standard_normal(CALIBRATION_LENGTH)) / math.sqrt(2.0)
+    if ar > 0:
+        z = lfilter([1.0], [1.0, -ar], z)
+    return z
+
+
+@functools.lru_cache(maxsize=8)
+def _calibrate(config: WaveletConfig) -> NoiseCalibration:
+    from driftloop.ridges import candidate_ridges
+
+    t_min = config.min_period_samples
+    edges = np.r_[0.0, t_min * 2.0 ** np.arange(1, CALIBRATION_BANDS)]
+    rng = np.random.default_rng(CALIBRATION_SEED)
+    out_s, out_d = [], []
+    for ar in CALIBRATION_AR:
+        stats, durations, bands = [], [], []
+        area = np.zeros(len(edges))
+        for _ in range(CALIBRATION_RECORDS):
+            tr = rotary_transform(_noise_record(rng, ar), 1.0, config)
+            var = noise_variance(fit_background(tr), tr)
+            cand = candidate_ridges(tr, config, var)
+            area += _band_areas(tr, edges) * CALIBRATION_LENGTH
+            if cand is not None:
+                stats.append(cand.statistic)
+                durations.append(np.diff(cand.starts).astype(float))
+                bands.append(np.clip(np.searchsorted(edges, chain_periods(cand, config),
+                                                     side="right") - 1, 0, len(edges) - 1))
+        stat = np.concatenate(stats) if stats else np.zeros(0)
+        dur = np.concatenate(durations) if durations else np.zeros(0)
+        band = np.concatenate(bands) if bands else np.zeros(0, dtype=int)
+        for b in range(len(edges)):
+            sel = band == b
+            order = np.argsort(-stat[sel], kind="stable")
+            out_s.append(stat[sel][order])
+            out_d.append(np.cumsum(dur[sel][order]) / max(area[b], 1.0))
+    return NoiseCalibration(edges, tuple(out_s), tuple(out_d), CALIBRATION_RECORDS)
+
+
+def calibrate(config: WaveletConfig) -> NoiseCalibration:
+    """Return the noise-ridge calibration for a configuration (cached).
+
+    Parameters
+    ----------
+    config : WaveletConfig
+        Wavelet and ridge parameters; the amplitude floor, period limit,
+        bias correction, workers, rate, dtype and cone of influence do not
+        matter (the last two hardly change the noise-ridge density per unit
+        analysed area) and are set to fixed values.
+
+    Returns
+    -------
+    NoiseCalibration
+        Statistics and durations of ridges in complex white Gaussian noise
+        (``CALIBRATION_RECORDS`` records of ``CALIBRATION_LENGTH`` samples,
+        seed ``CALIBRATION_SEED``, periods up to ``CALIBRATION_MAX_PERIOD``
+        samples), found with the fitted background, in three period bands:
+        the first two octaves above ``min_period_samples``, where the
+        Nyquist frequency cuts the wavelet, and all longer periods, where
+        the normalised noise is scale-free.
+    """
+    return _calibrate(_calibration_config(config))
+
+
+def threshold_for_density(statistic: np.ndarray, density: np.ndarray, target: float) -> float:
+    """Return the smallest statistic c whose noise-ridge density is at most ``target``.
+
+    Parameters
+    ----------
+    statistic, density : numpy.ndarray
+        One band of a :class:`NoiseCalibration`.
+    target : float
+        Allowed duration of false ridges per unit duration and unit area.
+
+    Returns
+    -------
+    float
+        The threshold c (ridges with E >= c are kept).
+    """
+    if len(statistic) == 0 or target >= density[-1]:
+        return 0.0
+    # ln D is close to linear in E in the upper tail and bends down further
+    # out; a straight fit from 20 times the target outwards is smooth and, if
+    # anything, conservative
+    tail = density <= 20.0 * target
+    if tail.sum() < 15:
+        tail = np.arange(len(density)) < min(len(density), 60)
+    slope, icpt = np.polyfit(statistic[tail], np.log(density[tail]), 1)
+    if not slope < 0:
+        return float(statistic[0])
+    return float((math.log(target) - icpt) / slope)
+
+
+def statistic_threshold(transform: RotaryTransform, period_samples: np.ndarray,
+                        config: WaveletConfig | None = None) -> np.ndarray:
+    """Return the ridge-statistic thresholds for a segment at the configured rate.
+
+    Parameters
+    ----------
+    transform : RotaryTransform
+        The segment's transform (gives the analysed area).
+    period_samples : numpy.ndarray
+        Geometric-mean scale period of each ridge (sample intervals).
+    config : WaveletConfig, optional
+        Gives ``false_positive_rate``; the transform's own if omitted.
+
+    Returns
+    -------
+    numpy.ndarray
+        Per ridge, c such that false ridges of every period band together
+        are expected to cover at most ``false_positive_rate`` of the segment
+        duration: each band is allowed the density rate / A, A the whole
+        analysed area (:func:`analysed_area`), and the threshold is the
+        largest that any of the calibration noise processes needs.
+    """
+    config = config or transform.config
+    period_samples = np.asarray(period_samples, dtype=float)
+    area = analysed_area(transform)
+    if area <= 0:
+        return np.full(period_samples.shape, np.inf)
+    cal = calibrate(config)
+    per_band = _band_thresholds(_calibration_config(config),
+                                float(config.false_positive_rate / area))
+    return per_band[cal.band(period_samples)]
+
+
+@functools.lru_cache(maxsize=256)
+def _band_thresholds(config: WaveletConfig, target: float) -> np.ndarray:
+    cal = _calibrate(config)
+    n_bands = len(cal.band_edges)
+    per_band = np.zeros(n_bands)
+    for i, (stat, dens) in enumerate(zip(cal.statistic, cal.density, strict=True)):
+        b = i % n_bands
+        per_band[b] = max(per_band[b], threshold_for_density(stat, dens, target))
+    per_band.setflags(write=False)
+    return per_band

@@ -1,0 +1,198 @@
+"""Rotary spectra of resampled drifter velocities.
+
+The complex velocity z = u + i v is split into its anticlockwise
+(positive-frequency) and clockwise (negative-frequency) parts (Gonella 1972,
+"A rotary-component method for analysing meteorological and oceanographic
+vector time series", Deep-Sea Res. 19, 833-846).  Spectra are Welch
+estimates (Hann window, 50 % overlap, mean removed per window) over every
+resampled segment long enough for one window; a drifter's spectrum averages
+its windows, the release spectrum averages all windows of all drifters.
+
+Free inertial motion turns anticyclonically (clockwise north, anticlockwise
+south), so a drogued drifter in open water should show a peak near |f| on
+its anticyclonic side; :func:`inertial_peak_check` tests that within a
+tolerance (default 15 %) for each drifter that spends enough time away from
+the equator.
+"""
+
+from __future__ import annotations
+
+from typing import NamedTuple
+
+import numpy as np
+import pandas as pd
+from scipy import signal
+
+from driftloop.physics import coriolis_parameter
+
+__all__ = ["RotarySpectra", "inertial_peak_check", "rotary_spectra"]
+
+#: Seconds per day, to express frequencies in cycles per day.
+_DAY_S = 86400.0
+
+#: Id of the release-level spectrum in the table.
+RELEASE_ID = "(release)"
+
+
+class RotarySpectra(NamedTuple):
+    """Rotary spectra per drifter and for the release.
+
+    Attributes
+    ----------
+    table : pandas.DataFrame
+        Columns ``drifter_id`` (the release as ``"(release)"``),
+        ``frequency_cpd`` (> 0, cycles per day), ``psd_anticlockwise`` and
+        ``psd_clockwise`` ((m/s)^2 per cycle per day), ``windows`` (Welch
+        windows averaged).
+    window_days : float
+        Length of a Welch window (days).
+    """
+
+    table: pd.DataFrame
+    window_days: float
+
+
+def _segment_spectra(z: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.ndarray, int]:
+    freq, psd = signal.welch(
+        z, fs=fs, window="hann", nperseg=nperseg, noverlap=nperseg // 2,
+        detrend="constant", return_onesided=False, scaling="density",
+    )
+    n_windows = 1 + (z.size - nperseg) // (nperseg - nperseg // 2)
+    return freq, psd, n_windows
+
+
+def rotary_spectra(track: pd.DataFrame, window_days: float = 10.0) -> RotarySpectra:
+    """Welch rotary spectra of the resampled velocities, per drifter and release.
+
+    Parameters
+    ----------
+    track : pandas.DataFrame
+        Resampled tracks with ``drifter_id``, ``segment``, ``time``, ``u``
+        and ``v`` (m/s) on a uniform grid within each segment.
+    window_days : float
+        Welch window length (days); segments shorter than one window are
+        left out.
+
+    Returns
+    -------
+    RotarySpectra
+        The spectra table.
+    """
+    rows = []
+    total: dict[str, object] = {"psd": None, "windows": 0}
+    freq_pos = None
+    for drifter, group in track.groupby("drifter_id", sort=True, observed=True):
+        acc, count = None, 0
+        for _, seg in group.groupby("segment", sort=True):
+            t = seg["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+            if t.size < 4:
+                continue
+            dt = float(np.median(np.diff(t)))
+            nperseg = int(round(window_days * _DAY_S / dt))
+            if t.size < nperseg or nperseg < 8:
+                continue
+            z = seg["u"].to_numpy(dtype=float) + 1j * seg["v"].to_numpy(dtype=float)
+            freq, psd, n = _segment_spectra(z, 1.0 / dt, nperseg)
+            acc = psd * n if acc is None else acc + psd * n
+            count += n
+        if acc is None:
+            continue
+        psd = acc / count
+        pos = freq > 0
+        order = np.argsort(freq[pos])
+        f_pos = freq[pos][order]
+        neg_index = {round(float(-f), 12): i for i, f in enumerate(freq) if f < 0}
+        cw = np.array([psd[neg_index[round(float(f), 12)]] for f in f_pos])
+        ccw = psd[pos][order]
+        freq_pos = f_pos
+        scale = 1.0 / _DAY_S  # PSD per Hz -> per cycle per day
+        rows.append(pd.DataFrame({
+            "drifter_id": str(drifter),
+            "frequency_cpd": f_pos * _DAY_S,
+            "psd_anticlockwise": ccw * scale,
+            "psd_clockwise": cw * scale,
+            "windows": count,
+        }))
+        total["psd"] = (np.stack([ccw, cw]) * count if total["psd"] is None
+                        else total["psd"] + np.stack([ccw, cw]) * count)
+        total["windows"] = int(total["windows"]) + count
+    if rows and freq_pos is not None:
+        both = total["psd"] / total["windows"]
+        rows.append(pd.DataFrame({
+            "drifter_id": RELEASE_ID,
+            "frequency_cpd": freq_pos * _DAY_S,
+            "psd_anticlockwise": both[0] / _DAY_S,
+            "psd_clockwise": both[1] / _DAY_S,
+            "windows": int(total["windows"]),
+        }))
+    columns = ["drifter_id", "frequency_cpd", "psd_anticlockwise", "psd_clockwise", "windows"]
+    table = pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=columns)
+    return RotarySpectra(table.loc[:, columns], window_days)
+
+
+def inertial_peak_check(
+    spectra: RotarySpectra,
+    track: pd.DataFrame,
+    *,
+    tolerance: float = 0.15,
+    min_days: float = 10.0,
+    equator_band_deg: float = 5.0,
+) -> dict[str, dict]:
+    """Check that each drifter's anticyclonic spectrum peaks near the inertial frequency.
+
+    Parameters
+    ----------
+    spectra : RotarySpectra
+        Output of :func:`rotary_spectra` for ``track``.
+    track : pandas.DataFrame
+        The resampled tracks (``drifter_id``, ``time``, ``lat``).
+    tolerance : float
+        Allowed fractional distance of the peak from |f|.
+    min_days : float
+        Drifters with fewer days poleward of ``equator_band_deg`` are not
+        checked.
+    equator_band_deg : float
+        Latitude band around the equator that does not count.
+
+    Returns
+    -------
+    dict
+        Per drifter: ``checked`` (bool), ``reason`` when not checked,
+        ``side`` (``"clockwise"`` north, ``"anticlockwise"`` south),
+        ``peak_cpd``, ``inertial_cpd`` (|f| / 2 pi at the mean latitude of
+        the time away from the equator) and ``within_tolerance``.
+
+    Notes
+    -----
+    The peak is sought at frequencies above half the inertial frequency, so
+    that the low-frequency drift does not win.
+    """
+    out: dict[str, dict] = {}
+    table = spectra.table
+    for drifter, group in track.groupby("drifter_id", sort=True, observed=True):
+        lat = group["lat"].to_numpy(dtype=float)
+        away = np.abs(lat) >= equator_band_deg
+        t = group["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+        dt = float(np.median(np.diff(t))) if t.size > 1 else 0.0
+        days = away.sum() * dt / _DAY_S
+        spec = table[table["drifter_id"] == str(drifter)]
+        if days < min_days or spec.empty:
+            out[str(drifter)] = {
+                "checked": False,
+                "reason": (f"fewer than {min_days:g} days poleward of {equator_band_deg:g} deg"
+                           if days < min_days else "no segment long enough for a spectrum"),
+            }
+            continue
+        mean_lat = float(np.mean(lat[away]))
+        f_cpd = abs(float(coriolis_parameter(mean_lat))) / (2 * np.pi) * _DAY_S
+        side = "psd_clockwise" if mean_lat > 0 else "psd_anticlockwise"
+        band = spec[spec["frequency_cpd"] >= 0.5 * f_cpd]
+        peak = float(band["frequency_cpd"].iloc[int(np.argmax(band[side].to_numpy()))])
+        out[str(drifter)] = {
+            "checked": True,
+            "side": side.removeprefix("psd_"),
+            "peak_cpd": peak,
+            "inertial_cpd": f_cpd,
+            "within_tolerance": bool(abs(peak / f_cpd - 1.0) <= tolerance),
+        }
+    return out
