@@ -242,8 +242,15 @@ def _piece(ridge: Ridge, seg: pd.DataFrame, times: np.ndarray, lat: np.ndarray,
     )
 
 
-def _merge(pieces: list[_Piece], config: LoopConfig) -> list[list[_Piece]]:
-    """Group pieces of one drifter that continue the same oscillation."""
+def _merge(pieces: list[_Piece], config: LoopConfig, wavelet: WaveletConfig
+           ) -> list[list[_Piece]]:
+    """Group pieces of one drifter that continue the same oscillation.
+
+    Across a segment break the ridges also stop short of the break by the
+    cone of influence, k P / omega = k P T / 2 pi on each side, which is
+    added to the allowed gap.
+    """
+    coi_periods = 2.0 * wavelet.coi * wavelet.duration / (2.0 * np.pi)
     order = sorted(pieces, key=lambda p: (p.sense, p.time_ns[0]))
     groups: list[list[_Piece]] = []
     for piece in order:
@@ -254,7 +261,10 @@ def _merge(pieces: list[_Piece], config: LoopConfig) -> list[list[_Piece]]:
             close_period = abs(np.log(piece.period / last.period)) <= np.log1p(
                 config.merge_period_tolerance
             )
-            if same_sense and close_period and gap_s <= config.merge_gap_periods * max(
+            allowed = config.merge_gap_periods
+            if piece.segment != last.segment:
+                allowed += coi_periods
+            if same_sense and close_period and gap_s <= allowed * max(
                 piece.period, last.period
             ):
                 groups[-1].append(piece)
@@ -415,7 +425,7 @@ def find_events(
         for _, seg in drifter.groupby("segment", sort=True):
             pieces.extend(_pieces_of_segment(seg.sort_values("time"), wavelet))
         n_ridges += len(pieces)
-        rows.extend(_event_row(g) for g in _merge(pieces, config))
+        rows.extend(_event_row(g) for g in _merge(pieces, config, wavelet))
     if not rows:
         return EventCatalogue(_empty_events(), n_ridges, [])
     events = classify(pd.DataFrame(rows), config)

@@ -1,0 +1,155 @@
+"""Loop events from resampled tracks, checked against inertial theory."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from driftloop import geodesy
+from driftloop.config import LoopConfig
+from driftloop.constants import TIDAL_PERIODS_H
+from driftloop.loops import EVENT_COLUMNS, classify, find_events, spin_name
+from driftloop.physics import coriolis_parameter, inertial_period_s, inertial_radius_m
+from driftloop.spectra import inertial_peak_check, rotary_spectra
+
+HOUR = 3600.0
+T0 = pd.Timestamp("2026-01-01T00:00:00Z")
+
+
+def track_from_velocity(u, v, lat0, lon0, *, drifter="D1", segment=0, start=T0):
+    """A resampled-track table whose positions integrate (u, v) hourly on WGS 84."""
+    n = u.size
+    lat = np.empty(n)
+    lon = np.empty(n)
+    lat[0], lon[0] = lat0, lon0
+    for k in range(1, n):  # test helper; the library never loops per fix
+        du, dv = (u[k - 1] + u[k]) / 2 * HOUR, (v[k - 1] + v[k]) / 2 * HOUR
+        end = geodesy.forward(lon[k - 1], lat[k - 1], np.degrees(np.arctan2(du, dv)),
+                              np.hypot(du, dv))
+        lat[k], lon[k] = float(end.lat_deg), float(end.lon_deg)
+    return pd.DataFrame({
+        "drifter_id": pd.array([drifter] * n, dtype="string"),
+        "segment": segment,
+        "time": start + pd.to_timedelta(np.arange(n), unit="h"),
+        "lat": lat, "lon": lon, "u": u, "v": v,
+        "sigma_m": 10.0, "in_gap": False, "gap_h": 0.0,
+    })
+
+
+def inertial_track(lat0, speed=0.2, days=12, drift=(0.05, 0.02), **kw):
+    """Free inertial oscillation Z = V exp(-i f t) plus a steady drift (f-plane)."""
+    t = np.arange(int(days * 24)) * HOUR
+    f = float(coriolis_parameter(lat0))
+    z = speed * np.exp(-1j * f * t) + complex(*drift)
+    return track_from_velocity(z.real, z.imag, lat0, -30.0, **kw)
+
+
+def test_inertial_circle_is_an_inertial_event_with_theory_period_and_radius():
+    lat0 = 45.0
+    events = find_events(inertial_track(lat0)).events
+    assert len(events) == 1
+    event = events.iloc[0]
+    # f-plane inertial circle: period pi / (Omega sin lat), radius V / |f| (physics.py,
+    # checked against TEOS-10 gsw.f in test_physics.py)
+    assert event["kind"] == "inertial"
+    assert event["spin"] == "anticyclonic" and event["sense"] == "clockwise"
+    assert event["period_h"] == pytest.approx(float(inertial_period_s(lat0)) / HOUR, rel=0.01)
+    assert event["radius_km"] == pytest.approx(float(inertial_radius_m(0.2, lat0)) / 1e3,
+                                               rel=0.03)
+    assert event["radius_fit_km"] == pytest.approx(event["radius_km"], rel=0.1)
+    assert event["period_ratio"] == pytest.approx(1.0, abs=0.02)
+    assert 0.8 < event["radius_ratio"] < 1.2
+    assert list(events.columns) == list(EVENT_COLUMNS)
+
+
+def test_southern_hemisphere_inertial_motion_turns_anticlockwise():
+    # AMS Glossary of Meteorology, "inertial oscillation": anticyclonic in both hemispheres
+    events = find_events(inertial_track(-40.0)).events
+    assert len(events) == 1
+    assert events.iloc[0]["sense"] == "anticlockwise"
+    assert events.iloc[0]["spin"] == "anticyclonic"
+    assert events.iloc[0]["kind"] == "inertial"
+
+
+def test_slow_cyclonic_loops_are_an_eddy_not_inertial():
+    lat0, period_h, speed = 40.0, 96.0, 0.25
+    t = np.arange(30 * 24) * HOUR
+    sense = np.sign(lat0)  # cyclonic = same sense as the Earth's rotation
+    z = speed * np.exp(1j * sense * 2 * np.pi * t / (period_h * HOUR))
+    events = find_events(track_from_velocity(z.real, z.imag, lat0, -30.0)).events
+    eddy = events[events["kind"] == "eddy"]
+    assert len(eddy) == 1 and (events["kind"] != "inertial").all()
+    assert eddy.iloc[0]["spin"] == "cyclonic"
+    assert eddy.iloc[0]["period_h"] == pytest.approx(period_h, rel=0.02)
+    radius_km = speed * period_h * HOUR / (2 * np.pi) / 1e3  # circle: R = V T / 2 pi
+    assert eddy.iloc[0]["radius_km"] == pytest.approx(radius_km, rel=0.03)
+
+
+def test_m2_tidal_circle_far_from_the_inertial_period_is_tidal():
+    # At 45 N the inertial period (16.9 h) is far from M2 (12.42 h, NOAA CO-OPS speed)
+    lat0, speed = 45.0, 0.15
+    t = np.arange(20 * 24) * HOUR
+    z = speed * np.exp(-2j * np.pi * t / (TIDAL_PERIODS_H["M2"] * HOUR))
+    events = find_events(track_from_velocity(z.real, z.imag, lat0, -30.0)).events
+    tidal = events[events["kind"] == "tidal"]
+    assert len(tidal) == 1 and tidal.iloc[0]["tide"] == "M2"
+
+
+def test_near_the_equator_nothing_is_inertial():
+    # at 4.5 deg the inertial period is 6.4 days; the loops are found, but
+    # f-plane inertial dynamics do not hold there, so they are not inertial
+    catalogue = find_events(inertial_track(4.5, speed=0.3, days=60, drift=(0.05, 0.0)))
+    events = catalogue.events
+    assert len(events) >= 1
+    assert (events["kind"] != "inertial").all()
+    # the circle (26 km radius) is centred north of the start, hence not exactly 1
+    assert (events["period_ratio"] - 1).abs().min() < 0.1
+    assert any("equator" in note for note in catalogue.notes)
+
+
+def test_a_segment_break_does_not_split_one_oscillation():
+    lat0 = 45.0
+    first = inertial_track(lat0, days=8, segment=0)
+    f = float(coriolis_parameter(lat0))
+    t = (np.arange(8 * 24) + 8 * 24 + 6) * HOUR  # resumes 6 h after the break
+    z = 0.2 * np.exp(-1j * f * t) + complex(0.05, 0.02)
+    second = track_from_velocity(z.real, z.imag, float(first["lat"].iloc[-1]),
+                                 float(first["lon"].iloc[-1]), segment=1,
+                                 start=T0 + pd.Timedelta(hours=8 * 24 + 6))
+    events = find_events(pd.concat([first, second], ignore_index=True)).events
+    inertial = events[events["kind"] == "inertial"]
+    assert len(inertial) == 1 and inertial.iloc[0]["pieces"] == 2
+    assert inertial.iloc[0]["duration_h"] > 13 * 24  # both segments less their cones
+
+
+def test_classify_uses_the_configured_band():
+    row = pd.DataFrame({"period_h": [16.9 * 1.2], "speed_m_s": [0.2], "radius_fit_km": [2.3],
+                        "lat": [45.0], "_sense": [-1]})
+    assert classify(row, LoopConfig()).iloc[0]["kind"] == "other"
+    wide = LoopConfig(inertial_period_ratio_max=1.25)
+    assert classify(row, wide).iloc[0]["kind"] == "inertial"
+
+
+def test_spin_names():
+    assert spin_name([-1, 1, -1, 1], [10.0, 10.0, -10.0, -10.0]).tolist() == [
+        "anticyclonic", "cyclonic", "cyclonic", "anticyclonic"]
+
+
+def test_noise_only_track_has_no_inertial_event():
+    rng = np.random.default_rng(5)
+    n = 20 * 24
+    u = 0.05 + np.cumsum(rng.normal(0, 0.005, n))
+    v = np.cumsum(rng.normal(0, 0.005, n))
+    events = find_events(track_from_velocity(u, v, 45.0, -30.0)).events
+    assert (events["kind"] != "inertial").all()
+
+
+def test_rotary_spectrum_peaks_at_f_on_the_anticyclonic_side():
+    track = inertial_track(45.0, days=30)
+    spectra = rotary_spectra(track)
+    check = inertial_peak_check(spectra, track)["D1"]
+    assert check["checked"] and check["side"] == "clockwise" and check["within_tolerance"]
+    f_cpd = abs(float(coriolis_parameter(track["lat"].mean()))) / (2 * np.pi) * 86400
+    assert check["inertial_cpd"] == pytest.approx(f_cpd, rel=1e-3)
+    mine = spectra.table[spectra.table["drifter_id"] == "D1"]
+    near = mine.iloc[(mine["frequency_cpd"] - f_cpd).abs().argsort()[:1]]
+    assert float(near["psd_clockwise"].iloc[0]) > 100 * float(near["psd_anticlockwise"].iloc[0])
