@@ -267,6 +267,8 @@ def _parser() -> argparse.ArgumentParser:
                         help="write the fixes, truth events and detected events to DIR")
     parser.add_argument("--truth-as-detected", action="store_true",
                         help="score the truth events against themselves (checks the scoring)")
+    parser.add_argument("--config", type=Path, default=None,
+                        help="TOML configuration to analyse with (default: the defaults)")
     return parser
 
 
@@ -292,7 +294,8 @@ def main(argv: list[str] | None = None) -> int:
         if args.truth_as_detected:
             events = truth_as_catalogue(release.events)
         else:
-            result = driftloop.analyse(fixes_path)
+            config = driftloop.load_config(args.config)
+            result = driftloop.analyse(fixes_path, config)
             events = getattr(result, "events", None)
         timings["analyse"] = time.perf_counter() - start
     if events is None:

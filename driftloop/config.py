@@ -327,6 +327,10 @@ class LoopConfig:
         Period / inertial period from which looping is taken as an eddy.
     equator_band_deg : float
         No event within this many degrees of the equator is called inertial.
+    episode_split_depth : float
+        An event is split into forcing episodes where its amplitude (smoothed
+        over one period) falls below this fraction of the maxima on both
+        sides; 0 never splits.
     """
 
     merge_period_tolerance: float = 0.15
@@ -339,6 +343,7 @@ class LoopConfig:
     inertial_radius_ratio_max: float = 2.0
     eddy_period_ratio_min: float = 1.5
     equator_band_deg: float = 5.0
+    episode_split_depth: float = 0.5
 
 
 @dataclass(frozen=True)

@@ -280,11 +280,58 @@ def _circular_median(angle: np.ndarray, period: float) -> float:
     return float(mean)
 
 
-def _event_row(group: list[_Piece]) -> dict:
-    cat = {name: np.concatenate([getattr(p, name) for p in group])
-           for name in ("time_ns", "period_s", "amplitude", "radius_m", "semi_major_m",
-                        "semi_minor_m", "orientation_rad", "lat", "lon", "residual_m")}
-    cycles = float(sum(p.cycles for p in group))
+_ARRAYS = ("time_ns", "period_s", "amplitude", "radius_m", "semi_major_m", "semi_minor_m",
+           "orientation_rad", "lat", "lon", "residual_m")
+
+
+def _concatenate(group: list[_Piece]) -> dict[str, np.ndarray]:
+    cat = {name: np.concatenate([getattr(p, name) for p in group]) for name in _ARRAYS}
+    cat["piece"] = np.concatenate([np.full(p.time_ns.size, k) for k, p in enumerate(group)])
+    return cat
+
+
+def _cycles(cat: dict[str, np.ndarray], dt_s: float) -> float:
+    return float(np.sum(dt_s / cat["period_s"]))
+
+
+def _split_episodes(cat: dict[str, np.ndarray], dt_s: float, depth: float,
+                    min_cycles: float) -> list[np.ndarray]:
+    """Split an event at deep minima of its amplitude into forcing episodes.
+
+    The amplitude, smoothed over one period, is cut at its deepest local
+    minimum lower than ``depth`` times the smaller of the maxima on either
+    side, if both parts keep at least ``min_cycles`` cycles; then again in
+    each part.  Returns index arrays of the episodes.
+    """
+    n = cat["time_ns"].size
+    window = max(int(round(float(np.median(cat["period_s"])) / dt_s)), 1)
+    smooth = uniform_filter1d(cat["amplitude"], window, mode="nearest")
+    cycles = np.cumsum(dt_s / cat["period_s"])
+    todo, done = [np.arange(n)], []
+    while todo:
+        idx = todo.pop()
+        a = smooth[idx]
+        if idx.size < 3:
+            done.append(idx)
+            continue
+        left = np.maximum.accumulate(a)
+        right = np.maximum.accumulate(a[::-1])[::-1]
+        interior = np.zeros(idx.size, dtype=bool)
+        interior[1:-1] = (a[1:-1] <= a[:-2]) & (a[1:-1] <= a[2:])
+        score = a / np.maximum(np.minimum(left, right), 1e-12)
+        c = cycles[idx] - cycles[idx[0]]
+        long_enough = (c >= min_cycles) & (c[-1] - c >= min_cycles)
+        ok = interior & long_enough & (score < depth)
+        if not ok.any():
+            done.append(idx)
+            continue
+        cut = int(np.flatnonzero(ok)[np.argmin(score[ok])])
+        todo.extend([idx[:cut], idx[cut:]])
+    return sorted(done, key=lambda i: i[0])
+
+
+def _event_row(group: list[_Piece], cat: dict[str, np.ndarray], dt_s: float) -> dict:
+    cycles = _cycles(cat, dt_s)
     n_eff = np.sqrt(max(cycles, 1.0))
     period = float(np.median(cat["period_s"]))
     period_sd = _MAD * float(np.median(np.abs(cat["period_s"] - period)))
@@ -292,10 +339,11 @@ def _event_row(group: list[_Piece]) -> dict:
     radius_sd = _MAD * float(np.median(np.abs(cat["radius_m"] - radius)))
     radius_fit = float(np.sqrt(np.mean(cat["residual_m"] ** 2)))
     lon0, lat0 = geodesy.track_centre(cat["lon"], cat["lat"])
-    weights = np.array([p.time_ns.size for p in group], dtype=float)
-    decay = float(np.average([p.decay_rate_per_s for p in group], weights=weights))
+    t_s = (cat["time_ns"] - cat["time_ns"][0]) / 1e9
+    decay = -np.polyfit(t_s, np.log(np.maximum(cat["amplitude"], 1e-12)), 1)[0] \
+        if t_s.size > 2 else 0.0
     theta = _circular_median(cat["orientation_rad"], np.pi)  # axial, ccw from east
-    first = group[0]
+    first = group[int(cat["piece"][0])]
     return {
         "drifter_id": first.drifter_id,
         "segment": first.segment,
@@ -318,8 +366,16 @@ def _event_row(group: list[_Piece]) -> dict:
         "lon": float(lon0),
         "centre_lat": float(lat0),
         "centre_lon": float(lon0),
-        "pieces": len(group),
+        "pieces": int(np.unique(cat["piece"]).size),
     }
+
+
+def _events_of_group(group: list[_Piece], config: LoopConfig, min_cycles: float) -> list[dict]:
+    cat = _concatenate(group)
+    dt_s = float(np.median(np.diff(group[0].time_ns))) / 1e9 if group[0].time_ns.size > 1 \
+        else 3600.0
+    episodes = _split_episodes(cat, dt_s, config.episode_split_depth, min_cycles)
+    return [_event_row(group, {k: v[i] for k, v in cat.items()}, dt_s) for i in episodes]
 
 
 def classify(events: pd.DataFrame, config: LoopConfig) -> pd.DataFrame:
@@ -425,7 +481,8 @@ def find_events(
         for _, seg in drifter.groupby("segment", sort=True):
             pieces.extend(_pieces_of_segment(seg.sort_values("time"), wavelet))
         n_ridges += len(pieces)
-        rows.extend(_event_row(g) for g in _merge(pieces, config, wavelet))
+        for group in _merge(pieces, config, wavelet):
+            rows.extend(_events_of_group(group, config, wavelet.min_cycles))
     if not rows:
         return EventCatalogue(_empty_events(), n_ridges, [])
     events = classify(pd.DataFrame(rows), config)
