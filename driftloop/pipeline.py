@@ -493,7 +493,10 @@ def load_run(run_dir: str | Path) -> dict[str, pd.DataFrame]:
             if column in text:
                 continue
             if table[column].dtype == object:
-                table[column] = pd.to_numeric(table[column].replace("", None), errors="ignore")
+                try:
+                    table[column] = pd.to_numeric(table[column].replace("", None))
+                except (ValueError, TypeError):
+                    pass  # a text column: keep it as read
         for column in times:
             table[column] = pd.to_datetime(table[column].replace("", None), utc=True)
         return table
