@@ -64,6 +64,19 @@ class ReadConfig:
     separator: str | None = None
     drifter_id: str | None = None
 
+    def __post_init__(self) -> None:
+        roles = ("id", "time", "date", "lat", "lon")
+        for role in self.columns:
+            if role not in roles:
+                raise ConfigError(
+                    f"key 'read.columns.{role}': unknown column role; roles are "
+                    + ", ".join(roles)
+                )
+        if self.separator is not None and len(self.separator) != 1:
+            raise ConfigError(
+                f"key 'read.separator' must be one character, got {self.separator!r}"
+            )
+
 
 @dataclass(frozen=True)
 class QCConfig:
@@ -131,6 +144,9 @@ class QCConfig:
     same_time_s: float = 1.0
     land_test: bool = True
     gap_h: float = 6.0
+
+    def __post_init__(self) -> None:
+        _require_positive(self, "qc")
 
 
 @dataclass(frozen=True)
@@ -394,6 +410,19 @@ class Config:
         return dataclasses.replace(self, **{section: dataclasses.replace(current, **checked)})
 
 
+def _require_positive(section: Any, name: str) -> None:
+    """Refuse numeric fields that are not finite and positive, naming the key."""
+    hints = typing.get_type_hints(type(section))
+    for f in fields(section):
+        value = getattr(section, f.name)
+        if hints[f.name] in (float, int) and not isinstance(value, bool) and not (
+            isinstance(value, int | float) and math.isfinite(value) and value > 0
+        ):
+            raise ConfigError(
+                f"key '{name}.{f.name}' must be a finite positive number, got {value!r}"
+            )
+
+
 def _type_ok(value: Any, annotation: Any) -> bool:
     origin = typing.get_origin(annotation)
     if origin is typing.Union or str(origin) == "<class 'types.UnionType'>":
@@ -430,6 +459,15 @@ def _check_section(cls: type, name: str, values: dict, file: str | None) -> dict
                 f"unknown key '{name}.{key}'; known keys of [{name}]: {', '.join(sorted(known))}",
                 file,
             )
+        if typing.get_origin(hints[key]) is dict and isinstance(value, dict):
+            _, item_type = typing.get_args(hints[key])
+            for item_key, item in value.items():
+                if not _type_ok(item, item_type):
+                    raise ConfigError(
+                        f"key '{name}.{key}.{item_key}' must be {_type_name(item_type)}, "
+                        f"got {type(item).__name__} {item!r}",
+                        file,
+                    )
         if not _type_ok(value, hints[key]):
             raise ConfigError(
                 f"key '{name}.{key}' must be {_type_name(hints[key])}, "
@@ -470,7 +508,10 @@ def config_from_dict(data: dict, file: str | None = None) -> Config:
         if not isinstance(values, dict):
             raise ConfigError(f"[{name}] must be a table of keys, got {values!r}", file)
         cls = hints[name]
-        sections[name] = cls(**_check_section(cls, name, values, file))
+        try:
+            sections[name] = cls(**_check_section(cls, name, values, file))
+        except ConfigError as exc:
+            raise ConfigError(exc.message, exc.file or file) from None
     return Config(**sections)
 
 

@@ -218,7 +218,7 @@ def prepare_out_dir(out_dir: str | Path, *, overwrite: bool = False) -> Path:
     out = Path(out_dir)
     if out.exists() and not out.is_dir():
         raise InputError(str(out), "--out must be a folder, but this is a file")
-    if out.is_dir() and any(out.iterdir()) and not (out / RUN_MARKER).is_file() and not overwrite:
+    if out.is_dir() and not overwrite and not _is_previous_run(out):
         raise InputError(
             str(out),
             "output folder is not empty and holds no previous driftloop run; "
@@ -226,6 +226,24 @@ def prepare_out_dir(out_dir: str | Path, *, overwrite: bool = False) -> Path:
         )
     out.mkdir(parents=True, exist_ok=True)
     return out
+
+
+def _is_previous_run(out: Path) -> bool:
+    """Whether a folder is empty or holds only what driftloop runs write.
+
+    A run marks its folder with ``provenance.json`` when it finishes; a run
+    killed before that leaves only driftloop's own output files and
+    temporary ``.NAME.*.part`` files, which a new run may replace.
+    """
+    if (out / RUN_MARKER).is_file():
+        return True
+    known = set(OUTPUT_NAMES) | {"report.html"}
+    for entry in out.iterdir():
+        name = entry.name
+        temporary = name.startswith(".") and name.endswith(".part")
+        if not (entry.is_file() and (name in known or temporary)):
+            return False
+    return True
 
 
 def _refuse_overwriting_inputs(targets: Iterable[Path], protect: Sequence[str | Path]) -> None:
