@@ -429,10 +429,17 @@ def analyse(
         resampled.track, config.loops, config.wavelet,
         progress=_progress_factory(progress, n_drifters, "loops"),
     )
+    from driftloop.drift import decompose, drift_statistics
+
+    decomposed = decompose(resampled.track, config.wavelet, catalogue.events)
     spectra = rotary_spectra(resampled.track)
     check = inertial_peak_check(spectra, resampled.track,
                                 equator_band_deg=config.loops.equator_band_deg)
     _add_stage_summaries(summary, resampled, catalogue, check)
+    drift = drift_statistics(decomposed, catalogue.events)
+    summary["drift"] = drift.get("(release)")
+    for drifter, entry in summary["drifters"].items():
+        entry["drift"] = drift.get(drifter)
     result.track = resampled.track
     result.events = catalogue.events
     result.spectra = spectra.table

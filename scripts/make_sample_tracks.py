@@ -18,6 +18,10 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
+
+from driftloop import geodesy
 from driftloop.synth import (
     DuplicateFix,
     EddyEncounter,
@@ -33,6 +37,14 @@ RELEASE = "orravane_a"
 SEED = 20240402
 DEFAULT_OUT = Path(__file__).resolve().parents[1] / "sample_tracks"
 DRIFTERS = tuple(f"ORV-A{i:02d}" for i in range(1, 9))
+
+#: The deliberately biased "model" of the sample: which drifters, run spacing
+#: and length (h), current scaling and extra eastward leeway (m/s).
+MODEL_DRIFTERS = ("ORV-A01",)
+MODEL_RESTART_H = 24
+MODEL_RUN_H = 72
+MODEL_CURRENT_FACTOR = 0.8
+MODEL_LEEWAY_EAST_M_S = 0.03
 
 
 def sample_scenario() -> ReleaseScenario:
@@ -95,12 +107,87 @@ def write_sample(out_dir: str | Path = DEFAULT_OUT) -> tuple[Path, Path]:
     return fixes, truth
 
 
+def write_model(out_dir: str | Path = DEFAULT_OUT) -> Path:
+    """Write a deliberately biased "model" of some sample drifters.
+
+    For each drifter of :data:`MODEL_DRIFTERS` a modelled run starts every
+    :data:`MODEL_RESTART_H` hours at a reported (uncorrupted) fix and lasts
+    :data:`MODEL_RUN_H` hours, hourly.  The run drifts with the true
+    background current along the drifter's track (``u_mean_m_s``,
+    ``v_mean_m_s`` of the truth file, linear in time) scaled by
+    :data:`MODEL_CURRENT_FACTOR`, plus an eastward leeway of
+    :data:`MODEL_LEEWAY_EAST_M_S`; it has no inertial, eddy or wind-driven
+    motion.  Positions are stepped along geodesics (:func:`driftloop.geodesy.forward`)
+    with the mid-step velocity.  The file is meant for trying ``driftloop
+    skill``; it is not a model of the real ocean.
+
+    Parameters
+    ----------
+    out_dir : str or Path
+        Directory holding ``<release>.csv`` and ``<release>_truth.csv`` (as
+        written by :func:`write_sample`); ``<release>_model.csv`` goes there.
+
+    Returns
+    -------
+    Path
+        The modelled-track file: columns ``platform_id`` (``ORV-A01@d01`` ...),
+        ``obs_time_utc``, ``latitude``, ``longitude``.
+    """
+    out_dir = Path(out_dir)
+    truth = pd.read_csv(out_dir / f"{RELEASE}_truth.csv")
+    observed = pd.read_csv(out_dir / f"{RELEASE}.csv")
+    truth["t"] = pd.to_datetime(truth["time"], utc=True)
+    row = truth["fix_row"].clip(lower=0)
+    truth["latitude_obs"] = observed["latitude"].to_numpy()[row]
+    truth["longitude_obs"] = observed["longitude"].to_numpy()[row]
+    rows = []
+    for drifter in MODEL_DRIFTERS:
+        tr = truth[(truth["drifter_id"] == drifter) & (truth["corruption"] != "duplicate")]
+        tr = tr.sort_values("t")
+        t_s = (tr["t"] - tr["t"].iloc[0]).dt.total_seconds().to_numpy()
+        fixes = tr[tr["corruption"] == "none"]
+        fix_s = (fixes["t"] - tr["t"].iloc[0]).dt.total_seconds().to_numpy()
+        day = 0
+        while True:
+            start_s = day * MODEL_RESTART_H * 3600.0
+            if start_s + MODEL_RUN_H * 3600.0 > t_s[-1]:
+                break
+            k = int(np.searchsorted(fix_s, start_s))
+            if k >= fix_s.size:
+                break
+            first = fixes.iloc[k]
+            t_run = fix_s[k] + 3600.0 * np.arange(MODEL_RUN_H + 1)
+            mid = t_run[:-1] + 1800.0
+            u = (MODEL_CURRENT_FACTOR * np.interp(mid, t_s, tr["u_mean_m_s"].to_numpy())
+                 + MODEL_LEEWAY_EAST_M_S)
+            v = MODEL_CURRENT_FACTOR * np.interp(mid, t_s, tr["v_mean_m_s"].to_numpy())
+            lat = np.empty(t_run.size)
+            lon = np.empty(t_run.size)
+            lat[0], lon[0] = float(first["latitude_obs"]), float(first["longitude_obs"])
+            az = np.degrees(np.arctan2(u, v))
+            dist = np.hypot(u, v) * 3600.0
+            for i in range(MODEL_RUN_H):
+                end = geodesy.forward(lon[i], lat[i], az[i], dist[i])
+                lon[i + 1], lat[i + 1] = float(end.lon_deg), float(end.lat_deg)
+            times = first["t"] + pd.to_timedelta(t_run - fix_s[k], unit="s")
+            rows.append(pd.DataFrame({
+                "platform_id": f"{drifter}@d{day + 1:02d}",
+                "obs_time_utc": times.strftime("%Y-%m-%dT%H:%M:%SZ"),
+                "latitude": np.char.mod("%.6f", lat),
+                "longitude": np.char.mod("%.6f", lon),
+            }))
+            day += 1
+    path = out_dir / f"{RELEASE}_model.csv"
+    pd.concat(rows, ignore_index=True).to_csv(path, index=False, lineterminator="\n")
+    return path
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="Regenerate the synthetic sample tracks.")
     parser.add_argument("--out-dir", type=Path, default=DEFAULT_OUT,
                         help="output directory (default: sample_tracks/ in the repository)")
     args = parser.parse_args(argv)
-    for path in write_sample(args.out_dir):
+    for path in (*write_sample(args.out_dir), write_model(args.out_dir)):
         print(f"wrote {path} ({path.stat().st_size / 1e6:.2f} MB)")
     return 0
 
