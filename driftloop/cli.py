@@ -121,6 +121,15 @@ def build_parser() -> argparse.ArgumentParser:
                         help="geojson, gpkg, parquet, csv (default geojson)")
     export.add_argument("--quiet", action="store_true", help="print nothing but errors")
     export.add_argument("--debug", action="store_true", help="show tracebacks of errors")
+    report = commands.add_parser(
+        "report", help="rebuild the HTML report of a previous run",
+        description="Rebuild RUN_DIR/report.html from the files of a previous analyse run.",
+        epilog="examples:\n  driftloop report runs/orravane_a\n",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    report.add_argument("run_dir", metavar="RUN_DIR", help="folder of a previous analyse run")
+    report.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    report.add_argument("--debug", action="store_true", help="show tracebacks of errors")
     skill = commands.add_parser(
         "skill", help="score modelled tracks against drifter tracks",
         description="Separation distance and the Liu-Weisberg normalised cumulative "
@@ -324,6 +333,8 @@ def _run(args: argparse.Namespace) -> int:
 
     if args.command == "export":
         return _run_export(args)
+    if args.command == "report":
+        return _run_report(args)
     config = _make_config(args)
     paths = _expand_inputs(args.inputs)
     formats = _parse_formats(getattr(args, "formats", None))
@@ -331,6 +342,10 @@ def _run(args: argparse.Namespace) -> int:
     result = analyse(paths, config, progress=not args.quiet, stages=stages)
     _report_row_problems(result.fixes, args.strict, args.quiet)
     written = result.write(args.out, overwrite=args.overwrite, protect=paths, formats=formats)
+    if stages == "all":
+        from driftloop.report.html import build_report
+
+        written.append(build_report(args.out))
     if not args.quiet:
         release = result.summary["release"]
         flags = release["by_flag"]
@@ -363,6 +378,20 @@ def _parse_formats(text: str | None) -> list[str]:
             f"choose from {', '.join(FORMATS)}"
         )
     return formats
+
+
+def _run_report(args: argparse.Namespace) -> int:
+    from driftloop.pipeline import load_run
+    from driftloop.report.html import build_report
+
+    load_run(args.run_dir)  # refuses a folder that is not a run, in one line
+    try:
+        path = build_report(args.run_dir)
+    except FileNotFoundError as exc:
+        raise InputError(str(args.run_dir), f"cannot rebuild the report: {exc}") from exc
+    if not args.quiet:
+        print(f"wrote {path}")
+    return 0
 
 
 def _run_export(args: argparse.Namespace) -> int:

@@ -189,7 +189,7 @@ OUTPUT_NAMES = (
     "resampled.csv", "resampled.csv-metadata.json", "resampled.nc",
     "loops.csv", "loops.csv-metadata.json", "spectra.csv", "spectra.csv-metadata.json",
     "fixes.geojson", "tracks.geojson", "loops.geojson", "loop_centres.geojson",
-    "loop_shapes.geojson", "driftloop.gpkg", "fixes.parquet", "tracks.parquet",
+    "loop_shapes.geojson", "report.html", "driftloop.gpkg", "fixes.parquet", "tracks.parquet",
     "loops.parquet", "loop_centres.parquet", "loop_shapes.parquet",
 )
 

@@ -1,0 +1,1 @@
+"""HTML report and figures of a driftloop run."""
