@@ -69,12 +69,13 @@ class ReadConfig:
         for role in self.columns:
             if role not in roles:
                 raise ConfigError(
-                    f"key 'read.columns.{role}': unknown column role; roles are "
+                    f"key 'read.columns.{role}': unknown column role {role!r}; roles are "
                     + ", ".join(roles)
                 )
-        if self.separator is not None and len(self.separator) != 1:
+        if self.separator is not None and len(self.separator) != 1 and self.separator != "tab":
             raise ConfigError(
-                f"key 'read.separator' must be one character, got {self.separator!r}"
+                f"key 'read.separator' must be one character or \"tab\", "
+                f"got {self.separator!r}"
             )
 
 
