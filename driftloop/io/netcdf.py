@@ -101,7 +101,7 @@ def read_netcdf(path: str | Path, config: ReadConfig) -> pd.DataFrame:
         _check_feature_type(ds, file)
         names = {role: _find_variable(ds, role, config, file) for role in ("time", "lat", "lon")}
         id_name = _find_id_variable(ds, config, file)
-        layout = _layout(ds, names, file)
+        layout = _layout(ds, names, file, _dimensions(path, ds))
         return _assemble(ds, names, id_name, layout, path, config, file)
 
 
@@ -126,9 +126,21 @@ def _open(path: str | Path, file: str) -> xr.Dataset:
     for engine in ("netcdf4", "h5netcdf"):
         try:
             return xr.open_dataset(path, engine=engine, decode_timedelta=False)
-        except (OSError, ValueError, RuntimeError, ImportError, TypeError, KeyError) as exc:
-            problems.append(f"{engine}: {exc}")
-    raise InputError(file, f"not a NetCDF file that can be read ({'; '.join(problems)})")
+        except ImportError:
+            continue  # an optional engine that is not installed says nothing about the file
+        except (OSError, ValueError, RuntimeError, TypeError, KeyError) as exc:
+            if isinstance(exc, OSError) and exc.strerror:
+                text = exc.strerror
+            else:
+                text = " ".join(str(exc).replace(str(path), "the file").split())
+            if "No module named" in text or "not available" in text:
+                continue
+            problems.append(text)
+    reason = problems[0] if problems else "no NetCDF library could open it"
+    raise InputError(
+        file, f"not a NetCDF file that can be read ({reason}); expected NetCDF classic or "
+        "NetCDF-4 with featureType = \"trajectory\""
+    )
 
 
 def _check_feature_type(ds: xr.Dataset, file: str) -> None:
@@ -224,7 +236,25 @@ def _find_id_variable(ds: xr.Dataset, config: ReadConfig, file: str) -> str | No
     return hits[0] if hits else None
 
 
-def _layout(ds: xr.Dataset, names: dict[str, str], file: str) -> dict:
+def _dimensions(path: str | Path, ds: xr.Dataset) -> dict[str, int]:
+    """Every dimension of the file with its size.
+
+    xarray leaves out dimensions that no variable uses, but an indexed ragged
+    array may name such a trajectory dimension in ``instance_dimension`` (a
+    file with no per-trajectory variable), so the file's own list is read.
+    """
+    sizes = {str(k): int(v) for k, v in ds.sizes.items()}
+    try:
+        import netCDF4
+
+        with netCDF4.Dataset(path) as nc:
+            sizes.update({str(k): len(v) for k, v in nc.dimensions.items()})
+    except (ImportError, OSError, RuntimeError, ValueError):
+        pass
+    return sizes
+
+
+def _layout(ds: xr.Dataset, names: dict[str, str], file: str, sizes: dict[str, int]) -> dict:
     """Work out how observations map to trajectories."""
     lat = ds.variables[names["lat"]]
     for name, var in ds.variables.items():
@@ -234,7 +264,7 @@ def _layout(ds: xr.Dataset, names: dict[str, str], file: str) -> dict:
     for name, var in ds.variables.items():
         instance = _attr(var, "instance_dimension")
         if instance:
-            return _indexed_layout(ds, str(name), var, instance, names, file)
+            return _indexed_layout(ds, str(name), var, instance, names, file, sizes)
     if lat.ndim == 2:
         return {"kind": "multidimensional", "trajectory_dim": None}
     if lat.ndim == 1:
@@ -306,9 +336,9 @@ def _ragged_layout(
 
 def _indexed_layout(
     ds: xr.Dataset, index_name: str, index: xr.Variable, instance: str, names: dict[str, str],
-    file: str,
+    file: str, sizes: dict[str, int],
 ) -> dict:
-    if instance not in ds.sizes or index.ndim != 1:
+    if instance not in sizes or index.ndim != 1:
         raise InputError(
             file, f"instance_dimension {instance!r} is not a dimension of the file",
             column=index_name,
@@ -316,7 +346,7 @@ def _indexed_layout(
     obs = index.dims[0]
     _require_obs(ds, names, obs, file, "indexed ragged array")
     trajectory = _integers(index, index_name, file)
-    n_traj = int(ds.sizes[instance])
+    n_traj = int(sizes[instance])
     bad = np.flatnonzero((trajectory < 0) | (trajectory >= n_traj))
     if len(bad):
         raise InputError(

@@ -116,7 +116,9 @@ def read_parquet(path: str | Path, config: ReadConfig) -> pd.DataFrame:
         ids = np.full(n, default_drifter_id(path, config), dtype=object)
         id_errors = np.full(n, "", dtype=object)
     errors = join_errors(id_errors, times.errors, numbers["lat"].errors, numbers["lon"].errors)
-    check_lon_convention(numbers["lon"].values, ids, source_row, file, roles.name("lon"))
+    # a row without a drifter id belongs to no drifter's longitude convention
+    check_lon_convention(np.where(id_errors == "", numbers["lon"].values, np.nan), ids,
+                         source_row, file, roles.name("lon"))
 
     return make_fixes(
         drifter_id=ids,
@@ -173,6 +175,10 @@ def _read_columns(
         column = table.column(position[i]).combine_chunks()
         if pa.types.is_dictionary(column.type):
             column = column.dictionary_decode()
+        if pa.types.is_null(column.type):
+            # a column with no value at all: every row is missing it (not a wrong type)
+            column = pa.nulls(len(column), pa.float64() if role in ("lat", "lon")
+                              else pa.large_string())
         columns[role] = column
     if "id" in columns:
         kind = columns["id"].type
@@ -228,7 +234,7 @@ def _numbers(values: pa.Array, column: str, file: str) -> ParsedNumbers:
         errors = np.full(len(values), "", dtype=object)
         infinite = np.isinf(numbers)
         for i in np.flatnonzero(infinite):
-            errors[i] = f"{column}: not a number {numbers[i]!r}"
+            errors[i] = f"{column}: not a finite number {float(numbers[i])!r}"
         return ParsedNumbers(np.where(infinite, np.nan, numbers), missing, errors)
     if is_text_type(kind):
         return parse_numbers(values, column)

@@ -19,12 +19,87 @@ from typing import IO, Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["atomic_open", "format_time", "write_csv", "write_json"]
+__all__ = [
+    "CSV_CHUNK_ROWS",
+    "PART_SUFFIX",
+    "atomic_open",
+    "format_time",
+    "remove_stale_parts",
+    "write_csv",
+    "write_json",
+]
+
+
+#: Temporary files are named ``.NAME.PID.RANDOM.part`` beside their target.
+PART_SUFFIX = ".part"
+
+
+def _process_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # exists, owned by someone else
+        return True
+    except OSError:
+        return False
+    return True
+
+
+def remove_stale_parts(path: str | Path) -> list[Path]:
+    """Remove temporary files of ``path`` left by writers that were killed.
+
+    A run killed part-way through :func:`atomic_open` (SIGKILL, power cut)
+    leaves its ``.NAME.PID.RANDOM.part`` file.  This removes those of
+    ``path`` whose process no longer runs, and those without a process id
+    (written by older versions); temporary files of live writers are kept.
+
+    Parameters
+    ----------
+    path : str or Path
+        The final file whose temporary files are looked for.
+
+    Returns
+    -------
+    list of Path
+        The files removed.
+    """
+    path = Path(path)
+    prefix = f".{path.name}."
+    removed = []
+    try:
+        candidates = [p for p in path.parent.iterdir()
+                      if p.name.startswith(prefix) and p.name.endswith(PART_SUFFIX)]
+    except OSError:
+        return removed
+    for part in candidates:
+        middle = part.name[len(prefix):-len(PART_SUFFIX)]
+        pid = middle.split(".", 1)[0]
+        if pid.isdigit() and "." in middle and (
+            int(pid) == os.getpid() or _process_alive(int(pid))
+        ):
+            continue
+        with contextlib.suppress(OSError):
+            part.unlink()
+            removed.append(part)
+    return removed
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 @contextlib.contextmanager
 def atomic_open(path: str | Path, mode: str = "w", **kwargs: Any) -> Iterator[IO]:
     """Open a temporary file beside ``path`` and rename it over ``path`` on success.
+
+    The temporary file is ``.NAME.PID.RANDOM.part`` in the same folder; it
+    gets the permissions a new file would get (``0o666`` less the umask) and
+    is flushed to disk before the rename, and the folder after it.  Stale
+    temporary files of ``path`` from killed writers are removed first
+    (:func:`remove_stale_parts`).
 
     Parameters
     ----------
@@ -43,16 +118,16 @@ def atomic_open(path: str | Path, mode: str = "w", **kwargs: Any) -> Iterator[IO
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    remove_stale_parts(path)
+    fd, tmp = tempfile.mkstemp(
+        prefix=f".{path.name}.{os.getpid()}.", suffix=PART_SUFFIX, dir=path.parent
+    )
     if "b" not in mode:
         kwargs.setdefault("encoding", "utf-8")
         kwargs.setdefault("newline", "")
-    # mkstemp creates the file readable by its owner only; give it the usual
-    # permissions of a new file (0666 less the umask)
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
     try:
+        with contextlib.suppress(OSError):
+            os.fchmod(fd, 0o666 & ~_umask())
         with os.fdopen(fd, mode, **kwargs) as handle:
             yield handle
             handle.flush()
@@ -62,6 +137,21 @@ def atomic_open(path: str | Path, mode: str = "w", **kwargs: Any) -> Iterator[IO
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
+    _sync_folder(path.parent)
+
+
+def _sync_folder(folder: Path) -> None:
+    """Flush a folder's entries (the rename) to disk, where the system allows it."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
 
 
 def format_time(times: pd.Series) -> pd.Series:
@@ -79,16 +169,30 @@ def format_time(times: pd.Series) -> pd.Series:
         present); NaT becomes the empty string.
     """
     t = pd.to_datetime(times, utc=True)
-    whole = t.dt.strftime("%Y-%m-%dT%H:%M:%SZ")
-    has_fraction = (t.dt.microsecond != 0) | (t.dt.nanosecond != 0)
-    if bool(has_fraction.any()):
-        frac = t.dt.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
-        whole = whole.where(~has_fraction, frac)
-    return whole.fillna("").astype(object).where(t.notna(), "")
+    index = t.index if isinstance(t, pd.Series) else None
+    ns = pd.DatetimeIndex(t).tz_convert("UTC").tz_localize(None).as_unit("ns").to_numpy()
+    nat = np.isnat(ns)
+    # numpy formats whole arrays in C; a datetime64[us] string has exactly the
+    # digits of strftime's %f, and NaT rows are blanked below
+    text = np.char.add(np.datetime_as_string(ns, unit="s"), "Z").astype(object)
+    fraction = ~nat & (ns.view(np.int64) % 1_000_000_000 != 0)
+    if fraction.any():
+        micro = np.datetime_as_string(ns[fraction], unit="us")
+        text[fraction] = np.char.add(micro, "Z")
+    text[nat] = ""
+    return pd.Series(text, index=index, dtype=object)
+
+
+#: Rows formatted and written at a time by :func:`write_csv`.
+CSV_CHUNK_ROWS = 200_000
 
 
 def write_csv(path: str | Path, table: pd.DataFrame, float_digits: dict | None = None) -> None:
     """Write a table as RFC 4180 CSV atomically.
+
+    The rows are formatted and written :data:`CSV_CHUNK_ROWS` at a time, so
+    that writing needs little memory beyond the table itself; the bytes are
+    those of writing the table in one go.
 
     Parameters
     ----------
@@ -99,14 +203,15 @@ def write_csv(path: str | Path, table: pd.DataFrame, float_digits: dict | None =
     float_digits : dict, optional
         ``{column: decimals}`` for columns to round on output.
     """
-    out = table.copy()
-    for name in out.columns:
-        if pd.api.types.is_datetime64_any_dtype(out[name].dtype):
-            out[name] = format_time(out[name])
-    for name, digits in (float_digits or {}).items():
-        out[name] = out[name].round(digits)
+    times = [n for n in table.columns if pd.api.types.is_datetime64_any_dtype(table[n].dtype)]
     with atomic_open(path) as handle:
-        out.to_csv(handle, index=False, lineterminator="\n")
+        for start in range(0, max(len(table), 1), CSV_CHUNK_ROWS):
+            out = table.iloc[start : start + CSV_CHUNK_ROWS].copy()
+            for name in times:
+                out[name] = format_time(out[name])
+            for name, digits in (float_digits or {}).items():
+                out[name] = out[name].round(digits)
+            out.to_csv(handle, index=False, header=start == 0, lineterminator="\n")
 
 
 def _json_default(value: Any) -> Any:
