@@ -23,7 +23,7 @@ from driftloop.config import Config, provenance
 from driftloop.errors import InputError
 from driftloop.io import FIX_COLUMNS, empty_fixes, read_file
 from driftloop.io.writers import write_csv, write_json
-from driftloop.qc import run_qc
+from driftloop.qc import QC_COLUMNS, run_qc
 from driftloop.summary import build_summary
 
 __all__ = ["FIXES_CSV_COLUMNS", "Analysis", "analyse", "prepare_out_dir", "qc_fixes"]
@@ -321,10 +321,14 @@ def qc_fixes(
     iterator = (group for _, group in groups)
     if progress is not None:
         iterator = progress(iterator)
-    parts = [run_qc(group, config.qc) for group in iterator]
+    parts = [run_qc(group, config.qc).loc[:, list(QC_COLUMNS)] for group in iterator]
     if not parts:
         return run_qc(fixes, config.qc)
-    return pd.concat(parts).loc[fixes.index]
+    added = pd.concat(parts).reindex(fixes.index)
+    out = fixes.copy()
+    for name in QC_COLUMNS:
+        out[name] = added[name]
+    return out
 
 
 def _progress_factory(progress: bool, n: int, desc: str):
