@@ -18,6 +18,7 @@ import json
 import math
 import os
 import tempfile
+import warnings
 from collections.abc import Iterable, Mapping
 from pathlib import Path
 
@@ -121,7 +122,11 @@ def figure_to_data_uri(fig: Figure, dpi: int = 90) -> str:
         The data URI.
     """
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": "driftloop"})
+    with warnings.catch_warnings():
+        # ids may hold characters the bundled font lacks; matplotlib draws a box
+        warnings.filterwarnings("ignore", message=r"Glyph \d+ .*missing from font",
+                                category=UserWarning)
+        fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": "driftloop"})
     return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
 
 
