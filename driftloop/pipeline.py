@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import os
+import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
@@ -73,6 +74,10 @@ class Analysis:
     spectra : pandas.DataFrame or None
         Rotary spectra per drifter and for the release
         (:func:`driftloop.spectra.rotary_spectra`).
+    stage_seconds : dict of str to float
+        Wall-clock time of each stage that ran (``read``, ``qc``, ...), in
+        seconds; recorded in ``provenance.json`` only, so that every other
+        output is the same on every run.
     """
 
     fixes: pd.DataFrame
@@ -82,6 +87,7 @@ class Analysis:
     track: pd.DataFrame | None = None
     events: pd.DataFrame | None = None
     spectra: pd.DataFrame | None = None
+    stage_seconds: dict[str, float] = field(default_factory=dict)
 
     @property
     def drifters(self) -> list[str]:
@@ -178,7 +184,8 @@ class Analysis:
                 provenance=info,
             )
         write_json(out / "summary.json", self.summary)
-        write_json(out / RUN_MARKER, _run_provenance(self.config, self.inputs))
+        write_json(out / RUN_MARKER,
+                   _run_provenance(self.config, self.inputs, self.stage_seconds))
         written += [out / "summary.json", out / RUN_MARKER]
         return written
 
@@ -288,10 +295,14 @@ def _csv_metadata(name: str, config: Config) -> dict:
     }
 
 
-def _run_provenance(config: Config, inputs: list[dict]) -> dict:
+def _run_provenance(config: Config, inputs: list[dict],
+                    stage_seconds: dict[str, float] | None = None) -> dict:
     info = provenance(config)
     info["inputs"] = inputs
     info["written_utc"] = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    if stage_seconds:
+        info["run_seconds"] = round(sum(stage_seconds.values()), 3)
+        info["stage_seconds"] = {k: round(v, 3) for k, v in stage_seconds.items()}
     return info
 
 
@@ -413,34 +424,51 @@ def analyse(
     >>> result = driftloop.analyse("sample_tracks/orravane_a.csv")  # doctest: +SKIP
     >>> result.summary["release"]["by_flag"]  # doctest: +SKIP
     """
+    if stages not in ("all", "qc"):
+        raise ValueError(f"stages must be 'all' or 'qc', got {stages!r}")
     config = config or Config()
+    timings: dict[str, float] = {}
+    clock = time.perf_counter()
+
+    def lap(stage: str) -> None:
+        nonlocal clock
+        now = time.perf_counter()
+        timings[stage] = timings.get(stage, 0.0) + now - clock
+        clock = now
+
     fixes, info = read_inputs(inputs, config)
+    lap("read")
     n_drifters = int(fixes["drifter_id"].nunique())
     flagged = qc_fixes(fixes, config, progress=_progress_factory(progress, n_drifters, "QC"))
     summary = build_summary(flagged, config, info)
-    result = Analysis(fixes=flagged, summary=summary, config=config, inputs=info)
+    lap("qc")
+    result = Analysis(fixes=flagged, summary=summary, config=config, inputs=info,
+                      stage_seconds=timings)
     if stages == "qc":
         return result
-    if stages != "all":
-        raise ValueError(f"stages must be 'all' or 'qc', got {stages!r}")
 
     from driftloop.loops import find_events
     from driftloop.resample import resample_all
     from driftloop.spectra import inertial_peak_check, rotary_spectra
 
     resampled = resample_all(flagged, config.resample, config.qc.gps_noise_m)
+    lap("resample")
     catalogue = find_events(
         resampled.track, config.loops, config.wavelet,
         progress=_progress_factory(progress, n_drifters, "loops"),
     )
+    lap("loops")
     from driftloop.drift import decompose, drift_statistics
 
     decomposed = decompose(resampled.track, config.wavelet, catalogue.events)
+    lap("drift")
     spectra = rotary_spectra(resampled.track)
     check = inertial_peak_check(spectra, resampled.track,
                                 equator_band_deg=config.loops.equator_band_deg)
+    lap("spectra")
     _add_stage_summaries(summary, resampled, catalogue, check)
     drift = drift_statistics(decomposed, catalogue.events)
+    lap("drift")
     summary["drift"] = drift.get("(release)")
     for drifter, entry in summary["drifters"].items():
         entry["drift"] = drift.get(drifter)

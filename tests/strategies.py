@@ -54,6 +54,8 @@ __all__ = [
 ]
 
 OUTPUTS = ("fixes.csv", "fixes.csv-metadata.json", "summary.json", "provenance.json")
+#: Keys of ``provenance.json`` that hold the clock of the run (the only ones that may differ).
+RUN_CLOCK = ("written_utc", "run_seconds", "stage_seconds")
 
 # --------------------------------------------------------------------------- model
 

@@ -30,6 +30,7 @@ import strategies
 from driftloop.io.writers import atomic_open, remove_stale_parts
 
 OUTPUTS = strategies.OUTPUTS
+RUN_CLOCK = strategies.RUN_CLOCK
 
 
 def _track_csv(path: Path, n: int, drifters: int = 3, lon0: float = -30.0) -> Path:
@@ -70,8 +71,9 @@ def _same_run(name: str, data: bytes, reference: bytes) -> bool:
     except ValueError:
         return False
     theirs = json.loads(reference)
-    mine.pop("written_utc", None)
-    theirs.pop("written_utc", None)
+    for key in RUN_CLOCK:
+        mine.pop(key, None)
+        theirs.pop(key, None)
     return mine == theirs
 
 

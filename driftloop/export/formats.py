@@ -141,6 +141,42 @@ def _temporary_beside(path: Path):
                 os.unlink(leftover)
 
 
+def _content_time(layers: Mapping[str, gpd.GeoDataFrame]) -> str:
+    """Time stamp for ``gpkg_contents.last_change``, the same on every run.
+
+    ``SOURCE_DATE_EPOCH`` (the reproducible-builds convention) when it is
+    set, otherwise the latest time in the layers (the newest fix), otherwise
+    the Unix epoch.  The clock time of the run is kept out of the file, so
+    that two runs on the same input write identical bytes.
+    """
+    epoch = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
+    stamp = None
+    if epoch.isdigit():
+        stamp = pd.Timestamp(int(epoch), unit="s", tz="UTC")
+    else:
+        for layer in layers.values():
+            for column in ("time", "end"):
+                if column in layer.columns and pd.api.types.is_datetime64_any_dtype(layer[column]):
+                    latest = layer[column].max()
+                    if pd.notna(latest) and (stamp is None or latest > stamp):
+                        stamp = latest
+    if stamp is None:
+        stamp = pd.Timestamp(0, unit="s", tz="UTC")
+    stamp = stamp.tz_convert("UTC")
+    return stamp.strftime("%Y-%m-%dT%H:%M:%S.") + f"{stamp.microsecond // 1000:03d}Z"
+
+
+@contextlib.contextmanager
+def _gpkg_change_time(stamp: str):
+    """Make GDAL write ``stamp`` wherever it records the current time."""
+    previous = pyogrio.get_gdal_config_option("OGR_CURRENT_DATE")
+    pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": stamp})
+    try:
+        yield
+    finally:
+        pyogrio.set_gdal_config_options({"OGR_CURRENT_DATE": previous})
+
+
 def write_gpkg(
     path: str | Path,
     layers: Mapping[str, gpd.GeoDataFrame],
@@ -168,7 +204,7 @@ def write_gpkg(
     path = Path(path)
     info = run_provenance(provenance)
     text = json.dumps(info, sort_keys=True, allow_nan=False)
-    with _temporary_beside(path) as tmp:
+    with _temporary_beside(path) as tmp, _gpkg_change_time(_content_time(layers)):
         for k, (name, layer) in enumerate(layers.items()):
             title = _LAYER_TITLES.get(name, name)
             geometry_type = _GPKG_GEOMETRY.get(name)
