@@ -5,7 +5,6 @@ from __future__ import annotations
 import json
 import math
 import shutil
-import subprocess
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -24,6 +23,7 @@ from driftloop.report.html import CAUTION, build_report  # noqa: E402
 
 SAMPLE = Path(__file__).resolve().parent.parent / "sample_tracks" / "orravane_a.csv"
 CHROMIUM = Path("/usr/bin/chromium")
+CHROMEDRIVER = Path("/usr/bin/chromedriver")
 
 
 @pytest.fixture(scope="module")
@@ -114,7 +114,9 @@ def test_report_is_self_contained(parsed, report):
 def test_report_contents(parsed, tables):
     text = " ".join(parsed.text)
     assert CAUTION in text
-    assert "not an operational search-and-rescue system" in text
+    assert "not an operational search-and-rescue (SAR) system" in text
+    assert "licensed practice" in text
+    assert text.count("not an operational search-and-rescue") == 1  # said once, not twice
     drifters = set(tables["fixes"]["drifter_id"].astype(str))
     assert drifters
     for d in drifters:
@@ -204,20 +206,148 @@ def test_save_figure_atomic(tmp_path, tables, suffix):
         fg.save_figure(fig, tmp_path / "pl.pdf")
 
 
-@pytest.mark.skipif(not CHROMIUM.exists(),
-                    reason="needs /usr/bin/chromium (apt-get install -y chromium)")
-def test_report_renders_in_a_real_browser(report, tmp_path):
-    shot = tmp_path / "shot.png"
-    cmd = [str(CHROMIUM), "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-           "--no-first-run", "--disable-background-networking", "--disable-component-update",
-           "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}",
-           f"--screenshot={shot}", "--window-size=1280,2000", report.resolve().as_uri()]
-    subprocess.run(cmd, check=False, capture_output=True, timeout=120)
-    assert shot.is_file() and shot.stat().st_size > 10_000
+def _circle_track(lat: float, days: float = 20.0, speed: float = 0.2) -> pd.DataFrame:
+    """Hourly resampled track of a pure clockwise inertial circle at one latitude.
+
+    The Coriolis parameter comes from TEOS-10's ``gsw.f`` (an outside
+    reference), so the expected period 2 pi / f does not use driftloop code.
+    """
+    import gsw
+
+    f = float(gsw.f(lat))
+    t = np.arange(int(days * 24)) * 3600.0
+    z = speed * np.exp(-1j * f * t)  # clockwise in the north (f > 0)
+    x = np.cumsum(z) * 3600.0
+    m_per_deg = 111_320.0
+    times = pd.Timestamp("2025-03-01T00:00:00Z") + pd.to_timedelta(t, unit="s")
+    return pd.DataFrame({
+        "drifter_id": "CIRCLE-1", "segment": 0,
+        "time": times.strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "lat": lat + x.imag / m_per_deg,
+        "lon": -40.0 + x.real / (m_per_deg * math.cos(math.radians(lat))),
+        "u": z.real, "v": z.imag, "sigma_m": 10.0, "in_gap": False, "gap_h": 0.0,
+    })
+
+
+def test_scalogram_ridge_sits_at_the_inertial_period_row():
+    import gsw
+
+    lat = 45.0
+    period_h = 2 * math.pi / float(gsw.f(lat)) / 3600.0  # TEOS-10 Coriolis parameter
+    assert period_h == pytest.approx(16.93, abs=0.01)  # from memory: 16.9 h at 45 N
+    fig = fg.scalogram(_circle_track(lat), "CIRCLE-1")
+    top, bottom = [a for a in fig.axes if a.get_ylabel() == "Period (h)"]
+    ridges = [ln for ln in bottom.get_lines() if ln.get_label() in ("ridge", "_child1")
+              or ln.get_color() == fg.PALETTE["vermillion"]]
+    assert ridges, "no ridge drawn in the clockwise panel"
+    y = np.concatenate([np.asarray(ln.get_ydata(), dtype=float) for ln in ridges])
+    assert np.median(y) == pytest.approx(period_h, rel=0.01)
+    assert not [ln for ln in top.get_lines() if ln.get_color() == fg.PALETTE["vermillion"]]
+    # the brightest row of the clockwise image is the inertial period
+    (mesh,) = bottom.collections[:1]
+    amp = np.asarray(mesh.get_array()).reshape(-1, len(_circle_track(lat)))
+    periods = np.asarray(mesh.get_coordinates())[:, 0, 1]
+    middle = amp[:, amp.shape[1] // 2]
+    brightest = periods[int(np.argmax(middle))]
+    step = abs(math.log(periods[1] / periods[0]))  # log-spaced period rows
+    # one of the two rows that bracket the inertial period
+    assert abs(math.log(brightest / period_h)) <= step * 1.01
+    # clockwise motion only in the clockwise transform (away from the record's ends)
+    top_amp = np.asarray(top.collections[0].get_array()).reshape(amp.shape)
+    assert float(top_amp[:, amp.shape[1] // 2].max()) < 0.05 * float(middle.max())
+
+
+def test_qc_timeline_draws_every_fix_in_its_flag_row(tables):
+    fixes = tables["fixes"]
+    drifter = str(fixes.loc[fixes["qc_flag"] == 4, "drifter_id"].iloc[0])
+    fig = fg.qc_timeline(fixes, drifter, tables["resampled"])
+    ax = fig.axes[0]
+    mine = fixes[fixes["drifter_id"].astype(str) == drifter]
+    legend = {t.get_text() for t in ax.get_legend().get_texts()}
+    for code, (name, _) in fg.FLAG_COLOURS.items():
+        assert f"{name} ({int((mine['qc_flag'] == code).sum())})" in legend
+
+
+def test_drift_figure_arrows_point_where_the_drift_goes(tables):
+    summary = tables["summary"]
+    fig = fg.drift_dispersion(summary, tables["resampled"])
+    ax_map, ax_k = fig.axes[:2]
+    arrows = [a for a in ax_map.texts if getattr(a, "arrow_patch", None) is not None
+              and a.get_text() == ""]
+    drifters = sorted(summary["drifters"])
+    assert len(arrows) == len(drifters) + 1  # one per drifter and the 0.1 m/s key
+    aspect = fg.map_aspect(tables["resampled"].groupby("drifter_id")["lat"].mean().to_numpy())
+    for arrow, d in zip(arrows, drifters, strict=False):
+        (x1, y1), (x0, y0) = arrow.xy, arrow.xyann
+        # compass bearing, clockwise from north (common practice), on an equal-distance frame
+        bearing = math.degrees(math.atan2((x1 - x0) * aspect, y1 - y0)) % 360.0
+        expected = summary["drifters"][d]["drift"]["mean_drift_direction_deg"]
+        assert (bearing - expected + 180.0) % 360.0 - 180.0 == pytest.approx(0.0, abs=0.5)
+    k = [ln for ln in ax_k.get_lines() if len(ln.get_xdata()) == 1]
+    values = sorted(float(ln.get_ydata()[0]) for ln in k)
+    expected_k = sorted(summary["drifters"][d]["drift"]["dispersion"]["vector"]
+                        ["diffusivity_m2_s"] for d in drifters)
+    assert values == pytest.approx(expected_k, rel=1e-9)
+
+
+def test_report_has_the_drift_table_and_the_run_clock(parsed, tables, run_dir):
+    summary = tables["summary"]
+    assert parsed.rows["drift-table"] == len(summary["drifters"]) + 1  # and the release
+    text = " ".join(parsed.text)
+    k = summary["drift"]["dispersion"]["vector"]["diffusivity_m2_s"]
+    assert f"{k:.0f}" in text
+    assert "Taylor 1921" in text
+    run = json.loads((run_dir / "provenance.json").read_text(encoding="utf-8"))
+    assert f"Run written {run['written_utc']}" in text
+    assert f"analysis took {run['run_seconds']:.1f} s" in text
+
+
+def _chromium_driver(tmp_path):
+    webdriver = pytest.importorskip("selenium.webdriver")
+    from selenium.webdriver.chrome.service import Service
+
+    options = webdriver.ChromeOptions()
+    options.binary_location = str(CHROMIUM)
+    for arg in ("--headless", "--no-sandbox", "--disable-gpu",
+                "--disable-background-networking", "--no-first-run",
+                "--disable-component-update", "--disable-sync", "--window-size=1280,2000",
+                f"--user-data-dir={tmp_path / 'profile'}"):
+        options.add_argument(arg)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    return webdriver.Chrome(service=Service(executable_path=str(CHROMEDRIVER)), options=options)
+
+
+@pytest.mark.skipif(not (CHROMIUM.exists() and CHROMEDRIVER.exists()),
+                    reason="needs /usr/bin/chromium and /usr/bin/chromedriver "
+                           "(apt-get install -y chromium chromium-driver)")
+def test_report_renders_in_a_real_browser(report, run_dir, tmp_path, monkeypatch):
+    monkeypatch.setenv("SE_OFFLINE", "true")  # selenium must not look for drivers online
+    driver = _chromium_driver(tmp_path)
+    try:
+        driver.set_page_load_timeout(120)
+        driver.get(report.resolve().as_uri())
+        assert driver.title == f"driftloop report: {run_dir.name}"
+        images = driver.execute_script(
+            "return Array.from(document.images).map("
+            "function(i){return [i.complete, i.naturalWidth, i.naturalHeight];});")
+        assert len(images) >= 3
+        assert all(done and w > 0 and h > 0 for done, w, h in images), images
+        # the event table sorts when its period header is clicked
+        header = driver.find_element("xpath", "//table[@id='event-table']//th[.='Period (h)']")
+        header.click()
+        column = [h.text for h in driver.find_elements(
+            "xpath", "//table[@id='event-table']//th")].index("Period (h)") + 1
+        periods = [float(c.get_attribute("data-v")) for c in driver.find_elements(
+            "xpath", f"//table[@id='event-table']/tbody/tr/td[{column}]")]
+        assert len(periods) > 1 and periods == sorted(periods)
+        errors = [e for e in driver.get_log("browser") if e.get("level") == "SEVERE"]
+        assert not errors, errors
+        shot = tmp_path / "shot.png"
+        assert driver.save_screenshot(str(shot))
+    finally:
+        driver.quit()
     import matplotlib.image as mpimg
 
-    img = mpimg.imread(shot)
-    rgb = (np.asarray(img)[..., :3] * 255).astype(np.uint8).reshape(-1, 3)
-    colours = np.unique(rgb[:: 7], axis=0)
-    assert len(colours) > 200, len(colours)
+    rgb = (np.asarray(mpimg.imread(shot))[..., :3] * 255).astype(np.uint8).reshape(-1, 3)
+    assert len(np.unique(rgb[::7], axis=0)) > 200  # a rendered page, not a blank one
     shutil.rmtree(tmp_path / "profile", ignore_errors=True)

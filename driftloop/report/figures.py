@@ -17,6 +17,8 @@ Figures
 - :func:`period_latitude` -- event period against latitude with the
   inertial period pi / (Omega |sin(lat)|).
 - :func:`qc_timeline` -- QC flags of one drifter over time, gaps shaded.
+- :func:`drift_dispersion` -- mean drift vector of each drifter on a map and
+  single-particle diffusivity per drifter with confidence intervals.
 """
 
 from __future__ import annotations
@@ -44,6 +46,7 @@ __all__ = [
     "KIND_COLOURS",
     "PALETTE",
     "SENSE_COLOURS",
+    "drift_dispersion",
     "drifter_latitude",
     "inertial_period_h",
     "map_aspect",
@@ -202,6 +205,29 @@ def _metadata(fmt: str) -> dict:
     return {"Software": "driftloop"}
 
 
+def _crosses_antimeridian(lon: pd.Series | np.ndarray) -> bool:
+    """Whether tracks straddle +-180 deg (then the map uses 0..360 longitudes)."""
+    lon = np.asarray(lon, dtype=float)
+    lon = lon[np.isfinite(lon)]
+    if lon.size == 0:
+        return False
+    plain = lon.max() - lon.min()
+    shifted = np.mod(lon, 360.0)
+    return bool(plain > 180.0 and shifted.max() - shifted.min() < plain)
+
+
+def _map_lon(lon: pd.Series | np.ndarray, wrap: bool) -> np.ndarray:
+    lon = np.asarray(lon, dtype=float)
+    return np.mod(lon, 360.0) if wrap else lon
+
+
+def _date_axis(ax) -> None:
+    """Calendar ticks (month names at month starts) on a date-number x axis."""
+    locator = mdates.AutoDateLocator(minticks=4, maxticks=9)
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator))
+
+
 def track_map(resampled: pd.DataFrame, fixes: pd.DataFrame | None = None,
               loops: pd.DataFrame | None = None) -> Figure:
     """Map all tracks, QC-failed fixes and loop events on lon/lat axes.
@@ -226,6 +252,8 @@ def track_map(resampled: pd.DataFrame, fixes: pd.DataFrame | None = None,
     ax = fig.add_subplot()
     res = resampled.copy()
     res["_t"] = _utc_naive(res["time"]).to_numpy()
+    wrap = _crosses_antimeridian(res["lon"])
+    res["lon"] = _map_lon(res["lon"], wrap)
     for k, (drifter, track) in enumerate(res.groupby("drifter_id", sort=True)):
         colour = _TRACK_GREYS[k % len(_TRACK_GREYS)]
         for j, (_, seg) in enumerate(track.groupby("segment", sort=True)):
@@ -255,10 +283,10 @@ def track_map(resampled: pd.DataFrame, fixes: pd.DataFrame | None = None,
         bad = fixes[fixes["qc_flag"] == 4]
         bad = bad[np.isfinite(bad["lat"]) & np.isfinite(bad["lon"])]
         if len(bad):
-            ax.plot(bad["lon"], bad["lat"], ls="none", marker="x", ms=6, mew=1.4,
-                    color=PALETTE["vermillion"], label=f"QC fail fix ({len(bad)})")
+            ax.plot(_map_lon(bad["lon"], wrap), bad["lat"], ls="none", marker="x", ms=6,
+                    mew=1.4, color=PALETTE["black"], label=f"QC fail fix ({len(bad)})")
     ax.set_aspect(map_aspect(res["lat"]), adjustable="datalim")
-    ax.set_xlabel("Longitude (degrees east)")
+    ax.set_xlabel("Longitude (degrees east, 0-360)" if wrap else "Longitude (degrees east)")
     ax.set_ylabel("Latitude (degrees north)")
     ax.set_title("Drifter tracks and loop events")
     ax.grid(True, lw=0.3, color=_GAP_COLOUR)
@@ -360,8 +388,7 @@ def scalogram(resampled: pd.DataFrame, drifter_id: str, wavelet_config=None) -> 
         if handles:
             ax.legend(fontsize=7, loc="upper right", framealpha=0.85)
     axes[1].set_xlabel("Time (UTC)")
-    axes[1].xaxis.set_major_formatter(mdates.ConciseDateFormatter(axes[1].xaxis
-                                                                  .get_major_locator()))
+    _date_axis(axes[1])
     if meshes:
         fig.colorbar(meshes[0], cax=fig.add_axes((0.885, 0.12, 0.02, 0.8)), label="|W| (m/s)")
     else:
@@ -523,7 +550,7 @@ def qc_timeline(fixes: pd.DataFrame, drifter_id: str, resampled: pd.DataFrame | 
     ax.set_ylim(-0.6, len(levels) - 0.4)
     ax.set_ylabel("QC flag")
     ax.set_xlabel("Time (UTC)")
-    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(ax.xaxis.get_major_locator()))
+    _date_axis(ax)
     ax.set_title(f"{drifter_id}: QC timeline", fontsize=10, loc="left")
     ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0), framealpha=0.9)
     return fig
@@ -575,3 +602,111 @@ def wavelet_config_from(parameters: Mapping | None):
         return WaveletConfig(**{k: v for k, v in given.items() if k in names})
     except (TypeError, ValueError):
         return WaveletConfig()
+
+
+def _diffusivity(entry: Mapping | None) -> tuple[float, float, float]:
+    """Vector diffusivity and its confidence interval (m2/s) from a drift entry."""
+    disp = ((entry or {}).get("dispersion") or {}).get("vector") or {}
+    k = disp.get("diffusivity_m2_s")
+    lo, hi = (disp.get("diffusivity_ci_m2_s") or [None, None])[:2]
+    return tuple(math.nan if v is None else float(v) for v in (k, lo, hi))
+
+
+def drift_dispersion(summary: Mapping, resampled: pd.DataFrame) -> Figure:
+    """Mean drift of each drifter and its single-particle diffusivity.
+
+    Left: the mean low-frequency drift vector of each drifter (oscillations
+    removed, :func:`driftloop.drift.decompose`) drawn from the drifter's mean
+    position on lon/lat axes (aspect 1 / cos(mean latitude)), with a 0.1 m/s
+    key.  Right: the diffusivity K = sigma^2 T_L of each drifter and of the
+    release (Taylor 1921), with the confidence intervals of ``summary.json``
+    where the record is long enough to give one.
+
+    Parameters
+    ----------
+    summary : mapping
+        ``summary.json``: ``drift`` (release) and ``drifters.*.drift``.
+    resampled : pandas.DataFrame
+        ``resampled.csv`` (for the mean positions).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Two axes.
+    """
+    fig = Figure(figsize=(10.0, 4.6))
+    ax_map, ax_k = fig.subplots(1, 2, gridspec_kw={"width_ratios": [1.25, 1.0], "left": 0.07,
+                                                   "right": 0.98, "bottom": 0.14, "top": 0.9,
+                                                   "wspace": 0.28})
+    drifters = summary.get("drifters", {})
+    ids = sorted(drifters)
+    res = resampled.copy()
+    res["drifter_id"] = res["drifter_id"].astype(str)
+    wrap = _crosses_antimeridian(res["lon"]) if len(res) else False
+    res["lon"] = _map_lon(res["lon"], wrap)
+    positions = res.groupby("drifter_id")[["lon", "lat"]].mean()
+    x, y, u, v, names = [], [], [], [], []
+    for d in ids:
+        entry = drifters[d].get("drift") or {}
+        if d not in positions.index or entry.get("mean_drift_u_m_s") is None:
+            continue
+        x.append(positions.loc[d, "lon"])
+        y.append(positions.loc[d, "lat"])
+        u.append(float(entry["mean_drift_u_m_s"]))
+        v.append(float(entry["mean_drift_v_m_s"]))
+        names.append(d)
+    for _, track in res.groupby("drifter_id", sort=True):
+        ax_map.plot(track["lon"], track["lat"], color="#BBBBBB", lw=0.6)
+    if names:
+        aspect = map_aspect(np.asarray(y))
+        # arrows in degrees: 1 m/s drawn as `scale` degrees of latitude
+        span = max(np.ptp(np.r_[x, res["lon"].min(), res["lon"].max()]) * aspect,
+                   np.ptp(np.r_[y, res["lat"].min(), res["lat"].max()]), 0.2)
+        scale = 0.15 * span / max(max(math.hypot(a, b) for a, b in zip(u, v, strict=True)), 1e-3)
+        for xi, yi, ui, vi, d in zip(x, y, u, v, names, strict=True):
+            ax_map.annotate("", xy=(xi + ui * scale / aspect, yi + vi * scale), xytext=(xi, yi),
+                            arrowprops={"arrowstyle": "->", "color": PALETTE["blue"], "lw": 1.6})
+            ax_map.annotate(d, (xi, yi), fontsize=7, xytext=(-3, -9),
+                            textcoords="offset points")
+        x0, y0 = ax_map.get_xlim()[0], min(y) - 0.05 * span
+        ax_map.annotate("", xy=(x0 + 0.1 * scale / aspect + 0.02 * span, y0),
+                        xytext=(x0 + 0.02 * span, y0),
+                        arrowprops={"arrowstyle": "->", "color": PALETTE["black"], "lw": 1.6})
+        ax_map.annotate("0.1 m/s", (x0 + 0.02 * span, y0), fontsize=7, xytext=(0, 4),
+                        textcoords="offset points")
+        ax_map.set_aspect(aspect, adjustable="datalim")
+    else:
+        ax_map.text(0.5, 0.5, "no drift estimate", transform=ax_map.transAxes, ha="center")
+    ax_map.set_xlabel("Longitude (degrees east, 0-360)" if wrap else "Longitude (degrees east)")
+    ax_map.set_ylabel("Latitude (degrees north)")
+    ax_map.set_title("Mean drift (oscillations removed)", fontsize=10, loc="left")
+    ax_map.grid(True, lw=0.3, color=_GAP_COLOUR)
+
+    rows = [(d, *_diffusivity(drifters[d].get("drift"))) for d in ids]
+    rows = [r for r in rows if np.isfinite(r[1])]
+    pos = np.arange(len(rows))
+    for i, (_, k, lo, hi) in enumerate(rows):
+        if np.isfinite(lo) and np.isfinite(hi):
+            ax_k.errorbar(i, k, yerr=[[k - lo], [hi - k]], fmt="o", color=PALETTE["blue"],
+                          capsize=3, ms=5)
+        else:
+            ax_k.plot(i, k, "o", color=PALETTE["blue"], mfc="white", ms=5)
+    k_rel, lo_rel, hi_rel = _diffusivity(summary.get("drift"))
+    if np.isfinite(k_rel):
+        ax_k.axhline(k_rel, color=PALETTE["vermillion"], lw=1.4,
+                     label=f"release K = {k_rel:.0f} m$^2$/s")
+        if np.isfinite(lo_rel) and np.isfinite(hi_rel):
+            ax_k.axhspan(lo_rel, hi_rel, color=PALETTE["vermillion"], alpha=0.15, lw=0,
+                         label="release 95 % interval")
+    if any(not (np.isfinite(r[2]) and np.isfinite(r[3])) for r in rows):
+        ax_k.plot([], [], "o", color=PALETTE["blue"], mfc="white", ms=5,
+                  label="drifter (record too short for an interval)")
+    if rows or np.isfinite(k_rel):
+        ax_k.legend(fontsize=7, loc="best")
+    ax_k.set_xticks(pos, [r[0] for r in rows], rotation=45, ha="right", fontsize=7)
+    ax_k.set_ylabel("Diffusivity K = $\\sigma^2 T_L$ (m$^2$/s)")
+    ax_k.set_title("Single-particle diffusivity", fontsize=10, loc="left")
+    ax_k.grid(True, axis="y", lw=0.3, color=_GAP_COLOUR)
+    if not rows:
+        ax_k.text(0.5, 0.5, "no dispersion estimate", transform=ax_k.transAxes, ha="center")
+    return fig

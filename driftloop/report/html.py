@@ -19,19 +19,16 @@ import math
 import os
 import tempfile
 import warnings
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 
 import pandas as pd
 from matplotlib.figure import Figure
 
+from driftloop.notices import CAUTION
 from driftloop.report import figures as fg
 
 __all__ = ["CAUTION", "build_report", "figure_to_data_uri", "render_report"]
-
-#: Shown at the top of every report.
-CAUTION = ("driftloop is a research tool, not an operational search-and-rescue system; "
-           "defer to the responsible authority and licensed practice.")
 
 _KINDS = ("inertial", "eddy", "tidal", "other")
 _FLAGS = (("pass", 1), ("suspect", 3), ("fail", 4), ("missing", 9))
@@ -138,8 +135,12 @@ def _figure(fig: Figure, alt: str, caption: str, dpi: int) -> str:
 
 
 def _table(header: Iterable[str], rows: Iterable[Iterable[object]], *, cls: str = "",
-           text_cols: int = 1, table_id: str = "") -> str:
-    """HTML table; the first ``text_cols`` columns are left-aligned text."""
+           text_cols: int = 1, table_id: str = "",
+           digits: Sequence[int] | None = None) -> str:
+    """HTML table; the first ``text_cols`` columns are left-aligned text.
+
+    ``digits`` gives the decimals of each column's numbers (default 2).
+    """
     head = "".join(f'<th class="t">{_e(h)}</th>' if i < text_cols else f"<th>{_e(h)}</th>"
                    for i, h in enumerate(header))
     body = []
@@ -148,7 +149,8 @@ def _table(header: Iterable[str], rows: Iterable[Iterable[object]], *, cls: str 
         for i, v in enumerate(row):
             raw = "" if isinstance(v, str) or v is None else f' data-v="{_e(v)}"'
             klass = ' class="t"' if i < text_cols else ""
-            cells.append(f"<td{klass}{raw}>{_e(_fmt(v))}</td>")
+            places = digits[i] if digits is not None and i < len(digits) else 2
+            cells.append(f"<td{klass}{raw}>{_e(_fmt(v, places))}</td>")
         body.append("<tr>" + "".join(cells) + "</tr>")
     attrs = (f' class="{cls}"' if cls else "") + (f' id="{table_id}"' if table_id else "")
     return (f"<table{attrs}><thead><tr>{head}</tr></thead><tbody>"
@@ -250,7 +252,92 @@ def _events_section(loops: pd.DataFrame) -> str:
             + "".join(rows_html) + "</tbody></table></div></section>")
 
 
-def _parameters_section(summary: dict) -> str:
+def _num(entry: Mapping | None, *keys: str) -> float | None:
+    """``entry[k0][k1]...`` as a float, or None when any level is missing."""
+    value: object = entry
+    for key in keys:
+        if not isinstance(value, Mapping):
+            return None
+        value = value.get(key)
+    return None if value is None else float(value)
+
+
+def _interval(entry: Mapping | None, key: str, scale: float = 1.0, digits: int = 0) -> str:
+    lo, hi = ((entry or {}).get(key) or [None, None])[:2]
+    if lo is None or hi is None:
+        return ""
+    return f"{lo * scale:.{digits}f}–{hi * scale:.{digits}f}"
+
+
+def _drift_row(name: str, drift: Mapping | None) -> list[object]:
+    drift = drift or {}
+    vec = (drift.get("dispersion") or {}).get("vector") or {}
+    speed = drift.get("drift_speed_m_s") or {}
+    t_l = _num(vec, "integral_time_s")
+    decays = drift.get("inertial_decay_times_h") or []
+    return [
+        name, _num(drift, "mean_drift_speed_m_s"), _num(drift, "mean_drift_direction_deg"),
+        _num(speed, "median"),
+        (f"{speed['p10']:.3f}–{speed['p90']:.3f}"
+         if speed.get("p10") is not None and speed.get("p90") is not None else ""),
+        _num(drift, "inertial_fraction"), _num(drift, "inertial_speed_median_m_s"),
+        _num(drift, "inertial_decay_time_median_h"), len(decays),
+        None if _num(vec, "variance_m2_s2") is None else _num(vec, "variance_m2_s2") * 1e4,
+        None if t_l is None else t_l / 3600.0,
+        _interval(vec, "integral_time_ci_s", 1 / 3600.0, 1),
+        _num(vec, "diffusivity_m2_s"), _interval(vec, "diffusivity_ci_m2_s"),
+    ]
+
+
+def _drift_section(summary: dict, resampled: pd.DataFrame, dpi: int) -> str:
+    drifters = summary.get("drifters", {})
+    rows = [_drift_row(d, drifters[d].get("drift")) for d in sorted(drifters)
+            if drifters[d].get("drift")]
+    if summary.get("drift"):
+        rows.append(_drift_row("(release)", summary["drift"]))
+    if not rows:
+        return ("<section id='drift'><h2>Drift and dispersion</h2>"
+                "<p>No drift estimate (no resampled segment).</p></section>")
+    header = ["Drifter", "Mean drift (m/s)", "Towards (deg)", "Drift speed median (m/s)",
+              "Drift speed p10–p90 (m/s)", "Inertial share", "Inertial speed median (m/s)",
+              "Decay time median (h)", "Decay times", "Variance (cm²/s²)",
+              "T_L (h)", "T_L 95 % (h)", "K (m²/s)", "K 95 % (m²/s)"]
+    method = ((summary.get("drift") or {}).get("dispersion") or {}).get("vector", {})
+    note = ("<p>Drift: the resampled velocity less its ridge-reconstructed oscillations "
+            "(inertial, tidal, eddy). Direction is where the mean drift goes, clockwise from "
+            "north. Inertial share: fraction of the record with an inertial ridge. Decay time: "
+            "e-folding time of each inertial event's amplitude. Dispersion of the drift "
+            "velocity (both components): variance, integral time scale T_L (autocorrelation "
+            f"integrated to its {_e(_limit_name(method.get('method')))}) and diffusivity "
+            "K = variance × T_L (Taylor 1921), with block-bootstrap 95 % intervals where "
+            "the record holds enough independent blocks. See docs/drift-calibration.md.</p>")
+    figure = _figure(fg.drift_dispersion(summary, resampled), "drift and dispersion",
+                     "Mean drift vector of each drifter from its mean position, and "
+                     "single-particle diffusivity per drifter and for the release.", dpi)
+    return ("<section id='drift'><h2>Drift and dispersion</h2>" + note
+            + "<div class='scroll'>" + _table(header, rows, cls="sortable", table_id="drift-table",
+                                             digits=[0, 3, 0, 3, 0, 2, 3, 0, 0, 1, 1, 0, 0, 0])
+            + "</div>" + figure + "</section>")
+
+
+def _limit_name(method: object) -> str:
+    return {"first_zero": "first zero crossing"}.get(str(method), str(method or "limit"))
+
+
+def _clock(run: Mapping | None) -> str:
+    """Say when the run was written and how long it took (from ``provenance.json``)."""
+    if not run or not run.get("written_utc"):
+        return ""
+    text = f"Run written {_e(run['written_utc'])}"
+    if run.get("run_seconds") is not None:
+        stages = ", ".join(f"{_e(k)} {float(v):.1f} s"
+                           for k, v in (run.get("stage_seconds") or {}).items())
+        text += f"; analysis took {float(run['run_seconds']):.1f} s"
+        text += f" ({stages})" if stages else ""
+    return f"<p id='run-clock'>{text}.</p>"
+
+
+def _parameters_section(summary: dict, run: Mapping | None = None) -> str:
     prov = summary.get("provenance", {})
     software = prov.get("software", "driftloop")
     version = prov.get("version", "unknown")
@@ -260,14 +347,14 @@ def _parameters_section(summary: dict) -> str:
         if inputs else ""
     return ("<section id='parameters'><h2>Parameters and version</h2>"
             f"<p>Produced by <b>{_e(software)}</b> version <b id='version'>{_e(version)}"
-            "</b>.</p>" + inp
+            "</b>.</p>" + _clock(run) + inp
             + "<div class='scroll'>" + _table(["Parameter", "Value"], rows, cls="kv", text_cols=2)
             + "</div></section>")
 
 
 def render_report(fixes: pd.DataFrame, resampled: pd.DataFrame, loops: pd.DataFrame,
                   spectra: pd.DataFrame, summary: dict, *, title: str = "driftloop report",
-                  dpi: int = 90) -> str:
+                  dpi: int = 90, run: Mapping | None = None) -> str:
     """Render the report of one run to an HTML string.
 
     Parameters
@@ -280,6 +367,9 @@ def render_report(fixes: pd.DataFrame, resampled: pd.DataFrame, loops: pd.DataFr
         Page title.
     dpi : int, optional
         Resolution of the embedded PNG figures.
+    run : mapping, optional
+        ``provenance.json`` of the run; its clock (when written, how long
+        each stage took) is shown with the parameters.
 
     Returns
     -------
@@ -291,7 +381,6 @@ def render_report(fixes: pd.DataFrame, resampled: pd.DataFrame, loops: pd.DataFr
                       | set(summary.get("drifters", {})))
     params = summary.get("provenance", {}).get("parameters", {})
     wavelet = fg.wavelet_config_from(params)
-    caution = summary.get("caution") or CAUTION
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
@@ -299,16 +388,16 @@ def render_report(fixes: pd.DataFrame, resampled: pd.DataFrame, loops: pd.DataFr
         f"<header><h1>{_e(title)}</h1><p>{len(drifters)} drifters, {len(loops)} loop events"
         f" &middot; driftloop {_e(summary.get('provenance', {}).get('version', ''))}</p>"
         "</header><main>",
-        f"<div class='caution' id='caution'><p>{_e(CAUTION)}</p>"
-        + (f"<p style='font-weight:400'>{_e(caution)}</p>" if caution != CAUTION else "")
-        + "</div>",
+        f"<div class='caution' id='caution'><p>{_e(CAUTION)}</p></div>",
         "<nav><a href='#release'>Release</a> &middot; <a href='#drifters'>Drifters</a> "
-        "&middot; <a href='#events'>Events</a> &middot; <a href='#figures'>Figures</a> "
+        "&middot; <a href='#events'>Events</a> &middot; <a href='#drift'>Drift</a> "
+        "&middot; <a href='#figures'>Figures</a> "
         "&middot; <a href='#per-drifter'>Per drifter</a> &middot; "
         "<a href='#parameters'>Parameters</a></nav>",
         _release_section(summary, fixes),
         _drifter_table(summary, drifters),
         _events_section(loops),
+        _drift_section(summary, resampled, dpi),
         "<section id='figures'><h2>Release figures</h2>",
     ]
     if len(resampled):
@@ -342,7 +431,7 @@ def render_report(fixes: pd.DataFrame, resampled: pd.DataFrame, loops: pd.DataFr
         parts.append(_figure(fg.qc_timeline(fixes, d, resampled if has_track else None),
                              f"QC timeline of {d}",
                              "QC flag of every fix over time; gaps shaded.", dpi))
-    parts += ["</section>", _parameters_section(summary), "</main>",
+    parts += ["</section>", _parameters_section(summary, run), "</main>",
               f"<script>{_SCRIPT}</script></body></html>"]
     return "\n".join(parts)
 
@@ -385,8 +474,12 @@ def build_report(run_dir: str | Path, *, dpi: int = 90) -> Path:
     spectra = _read_csv(run_dir / "spectra.csv", dtype=str_id)
     with open(run_dir / "summary.json", encoding="utf-8") as fh:
         summary = json.load(fh)
+    run = None
+    if (run_dir / "provenance.json").is_file():
+        with open(run_dir / "provenance.json", encoding="utf-8") as fh:
+            run = json.load(fh)
     text = render_report(fixes, resampled, loops, spectra, summary,
-                         title=f"driftloop report: {run_dir.name}", dpi=dpi)
+                         title=f"driftloop report: {run_dir.name}", dpi=dpi, run=run)
     out = run_dir / "report.html"
     fd, tmp = tempfile.mkstemp(prefix=".report.html.", suffix=".tmp", dir=run_dir)
     try:
