@@ -58,6 +58,8 @@ figure{margin:10px 0}
 figure img{max-width:100%;height:auto;border:1px solid #eee}
 figcaption{font-size:.85em;color:#444}
 .kv td{text-align:left}
+.glance{display:flex;flex-wrap:wrap;gap:18px;align-items:flex-start}
+.glance-map{flex:1 1 520px;min-width:320px}
 .ok{color:#009E73;font-weight:600}.bad{color:#D55E00;font-weight:600}
 """
 
@@ -166,7 +168,7 @@ def _flatten(prefix: str, value: object) -> list[tuple[str, str]]:
     return [(prefix, json.dumps(value) if not isinstance(value, str) else value)]
 
 
-def _release_section(summary: dict, fixes: pd.DataFrame) -> str:
+def _release_section(summary: dict, fixes: pd.DataFrame, map_html: str = "") -> str:
     rel = summary.get("release", {})
     by_flag = rel.get("by_flag", {})
     n = int(rel.get("fixes", len(fixes)))
@@ -191,8 +193,10 @@ def _release_section(summary: dict, fixes: pd.DataFrame) -> str:
     rows += [(f"Events: {k}", int(loops.get(k, 0))) for k in _KINDS]
     reasons = rel.get("by_reason") or {}
     reason_table = _table(["QC reason", "fixes"], sorted(reasons.items())) if reasons else ""
-    return ("<section id='release'><h2>Release summary</h2>"
-            + _table(["Quantity", "Value"], rows, cls="kv") + reason_table + "</section>")
+    tables = _table(["Quantity", "Value"], rows, cls="kv") + reason_table
+    return ("<section id='release'><h2>Release summary</h2><div class='glance'>"
+            f"<div>{tables}</div>" + (f"<div class='glance-map'>{map_html}</div>" if map_html
+                                      else "") + "</div></section>")
 
 
 def _drifter_table(summary: dict, drifters: list[str]) -> str:
@@ -381,6 +385,12 @@ def render_report(fixes: pd.DataFrame, resampled: pd.DataFrame, loops: pd.DataFr
                       | set(summary.get("drifters", {})))
     params = summary.get("provenance", {}).get("parameters", {})
     wavelet = fg.wavelet_config_from(params)
+    map_html = ""
+    if len(resampled):
+        map_html = _figure(fg.track_map(resampled, fixes, loops), "map of all tracks",
+                           "Resampled tracks (grey), loop events by class, QC-failed "
+                           "fixes (crosses); plain longitude/latitude axes scaled by "
+                           "1/cos(mean latitude).", dpi)
     parts = [
         "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>",
         "<meta name='viewport' content='width=device-width, initial-scale=1'>",
@@ -394,17 +404,12 @@ def render_report(fixes: pd.DataFrame, resampled: pd.DataFrame, loops: pd.DataFr
         "&middot; <a href='#figures'>Figures</a> "
         "&middot; <a href='#per-drifter'>Per drifter</a> &middot; "
         "<a href='#parameters'>Parameters</a></nav>",
-        _release_section(summary, fixes),
+        _release_section(summary, fixes, map_html),
         _drifter_table(summary, drifters),
         _events_section(loops),
         _drift_section(summary, resampled, dpi),
         "<section id='figures'><h2>Release figures</h2>",
     ]
-    if len(resampled):
-        parts.append(_figure(fg.track_map(resampled, fixes, loops), "map of all tracks",
-                             "Resampled tracks (grey), loop events by class, QC-failed "
-                             "fixes (crosses); plain longitude/latitude axes scaled by "
-                             "1/cos(mean latitude).", dpi))
     parts.append(_figure(fg.period_latitude(loops), "event period against latitude",
                          "Loop event periods against latitude; the line is the inertial "
                          "period pi/(Omega |sin(latitude)|) in both hemispheres.", dpi))
