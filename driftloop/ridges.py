@@ -100,14 +100,14 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import threading
 from dataclasses import dataclass, field
 from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
 
-from driftloop.wavelet import RotaryTransform, WaveletConfig, rotary_transform
+from driftloop import wavelet
+from driftloop.wavelet import RotaryTransform, WaveletConfig, scratch
 
 __all__ = [
     "Candidates",
@@ -329,73 +329,89 @@ def _both_senses(tr: RotaryTransform) -> np.ndarray:
     return np.concatenate((tr.w_ccw, tr.w_cw))
 
 
-_SCRATCH = threading.local()
-
-
-def _scratch(name: str, shape: tuple, dtype) -> np.ndarray:
-    """Return a reusable per-thread work array of the given shape and dtype."""
-    store = getattr(_SCRATCH, "arrays", None)
-    if store is None:
-        store = _SCRATCH.arrays = {}
-    arr = store.get(name)
-    size = int(np.prod(shape))
-    if arr is None or arr.dtype != np.dtype(dtype) or arr.size < size:
-        arr = store[name] = np.empty(size, dtype=dtype)
-    return arr[:size].reshape(shape)
-
-
 def _unit(w: np.ndarray) -> np.ndarray:
     mag = np.abs(w)
     return np.where(mag > 0, w / np.where(mag > 0, mag, 1.0), 1.0)
 
 
-def _ridge_points(tr: RotaryTransform, thresholds: np.ndarray):
-    """Refined amplitude ridge points of both senses (vectorised over time and scale)."""
+def _squared_thresholds(config: WaveletConfig, n_p: int, noise_variance: np.ndarray | None,
+                        dtype) -> np.ndarray:
+    """(2, J) squared amplitude thresholds of ridge points, in the dtype of the power."""
+    thr = np.full((2, n_p), config.amplitude_floor_m_s)
+    if noise_variance is not None:
+        thr = np.maximum(thr, config.min_point_snr * np.sqrt(noise_variance))
+    return np.square(thr).astype(dtype)
+
+
+def _stored_power(tr: RotaryTransform) -> np.ndarray:
+    """|W+-|^2 of a stored transform, (2, J, N), computed a few rows at a time."""
     n_p, n = tr.w_ccw.shape
-    if n_p < 3 or n == 0:
-        return None
-    both = _both_senses(tr)
-    # scratch arrays are kept per thread: fresh multi-megabyte arrays for every
-    # segment cost as much in page faults as the arithmetic on them
-    amp = _scratch("amp", (2 * n_p, n), np.abs(both[:1, :1]).dtype)
-    np.abs(both[:, :n], out=amp)
-    amp = amp.reshape(2, n_p, n)
-    rises = np.greater(amp[:, 1:], amp[:, :-1], out=_scratch("rises", (2, n_p - 1, n), bool))
-    is_max = np.greater(amp[:, 1:-1], thresholds[:, 1:-1, None].astype(amp.dtype),
-                        out=_scratch("is_max", (2, n_p - 2, n), bool))
-    is_max &= rises[:, :-1]  # |W| rises into scale j ...
-    is_max &= ~rises[:, 1:]  # ... and does not rise out of it
+    real_t = np.zeros(1, dtype=tr.w_ccw.dtype).real.dtype
+    power = scratch("ridges.power", (2, n_p, n), real_t)
+    rows = max(1, wavelet.BLOCK_BYTES // max(1, 16 * n))
+    tmp = scratch("ridges.squares", (rows, 2 * n), real_t)
+    for s, w in enumerate((tr.w_ccw, tr.w_cw)):
+        if w.strides[-1] != w.itemsize:
+            w = np.ascontiguousarray(w)
+        for a in range(0, n_p, rows):
+            v = w[a:a + rows].view(real_t)
+            sq = tmp[:v.shape[0]]
+            np.multiply(v, v, out=sq)
+            np.add(sq[:, 0::2], sq[:, 1::2], out=power[s, a:a + rows])
+    return power
+
+
+def _maxima(power: np.ndarray, thr2: np.ndarray, inside: np.ndarray, j_lo: int, j_hi: int
+            ) -> np.ndarray:
+    """Flat indices into ``power`` of the ridge-point candidates at scales j_lo .. j_hi.
+
+    A candidate is a local maximum of |W|^2 across scale (rising into scale j
+    and not rising out of it) above the squared threshold and outside the
+    cone of influence (``inside``); rows j_lo - 1 .. j_hi + 1 must be filled.
+    """
+    _, n_p, n = power.shape
+    k = j_hi - j_lo + 1
+    rises = scratch("ridges.rises", (2, k + 1, n), bool)
+    np.greater(power[:, j_lo:j_hi + 2], power[:, j_lo - 1:j_hi + 1], out=rises)
+    is_max = scratch("ridges.is_max", (2, k, n), bool)
+    np.greater(rises[:, :k], rises[:, 1:], out=is_max)  # rises in and does not rise out
+    above = scratch("ridges.above", (2, k, n), bool)
+    np.greater(power[:, j_lo:j_hi + 1], thr2[:, j_lo:j_hi + 1, None], out=above)
+    np.logical_and(is_max, above, out=is_max)
+    np.logical_and(is_max, inside[None, j_lo:j_hi + 1], out=is_max)
     flat = np.flatnonzero(is_max)
-    if len(flat) == 0:
-        return None
-    s_idx, rest = np.divmod(flat, (n_p - 2) * n)
-    j_idx, t_idx = np.divmod(rest, n)
-    j_idx += 1
-    inside = (t_idx >= tr.coi[j_idx]) & (t_idx < n - tr.coi[j_idx])
-    s_idx, j_idx, t_idx = s_idx[inside], j_idx[inside], t_idx[inside]
-    if len(t_idx) == 0:
-        return None
-    amp2 = amp.reshape(2 * n_p, n)
-    row = s_idx * n_p + j_idx
+    s_idx, rest = np.divmod(flat, k * n)
+    return (s_idx * n_p + j_lo) * n + rest
+
+
+def _grid_points(power: np.ndarray, flat: np.ndarray):
+    """Refined ridge points from the candidates: sense, time, grid scale, scale, ln |W|."""
+    _, n_p, n = power.shape
+    plane = n_p * n
+    pf = power.reshape(-1)
+    s_idx = flat // plane
+    own = pf[flat]
     # a ridge has the sense of the stronger rotary component at its scale (the sign
     # of the ellipse's b): the weaker one is its other-sense value, not a ridge
-    dominant = amp2[row, t_idx] >= amp2[(1 - s_idx) * n_p + j_idx, t_idx]
-    s_idx, j_idx, t_idx, row = s_idx[dominant], j_idx[dominant], t_idx[dominant], row[dominant]
-    if len(t_idx) == 0:
+    dominant = own >= pf[flat + (1 - 2 * s_idx) * plane]
+    flat, s_idx, own = flat[dominant], s_idx[dominant], own[dominant]
+    if len(flat) == 0:
         return None
-    lm, l0, lp = (np.log(np.maximum(amp2[row + d, t_idx], _TINY)) for d in (-1, 0, 1))
+    rest = flat - s_idx * plane
+    j_idx, t_idx = np.divmod(rest, n)
+    # ln |W| = ln(|W|^2) / 2 at the three scales around the maximum
+    lm, l0, lp = (0.5 * np.log(np.maximum(v.astype(np.float64), _TINY))
+                  for v in (pf[flat - n], own, pf[flat + n]))
     curv = lm - 2.0 * l0 + lp
     safe = np.where(curv < 0, curv, -1.0)
     delta = np.clip(np.where(curv < 0, 0.5 * (lm - lp) / safe, 0.0), -0.5, 0.5)
     log_peak = l0 - 0.25 * (lm - lp) * delta
-    return 1 - 2 * s_idx, t_idx, j_idx + delta, log_peak
+    return 1 - 2 * s_idx, t_idx, j_idx, j_idx + delta, log_peak
 
 
-def _complex_at(tr: RotaryTransform, sense: np.ndarray, t: np.ndarray, x: np.ndarray,
+def _complex_at(both: np.ndarray, n_p: int, sense: np.ndarray, t: np.ndarray, x: np.ndarray,
                 log_amp: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Own- and other-sense transform at refined scales: parabolic modulus, Lagrange phase."""
-    n_p = tr.w_ccw.shape[0]
-    both = _both_senses(tr)
     j = np.clip(np.rint(x).astype(np.int64), 1, n_p - 2)
     delta = x - j
     s_idx = (1 - sense) // 2
@@ -411,47 +427,54 @@ def _complex_at(tr: RotaryTransform, sense: np.ndarray, t: np.ndarray, x: np.nda
     return w_own, w_other
 
 
-def _chain(sense: np.ndarray, t: np.ndarray, x: np.ndarray, n: int, max_dx: np.ndarray):
+def _nearest(key: np.ndarray, row_pad: np.ndarray, x_pad: np.ndarray, x: np.ndarray,
+             target_row: np.ndarray, big: float) -> tuple[np.ndarray, np.ndarray]:
+    """Nearest point in log-scale within ``target_row`` (index, distance; inf if none).
+
+    ``row_pad`` and ``x_pad`` carry one sentinel entry at the end, which index
+    -1 (before the first point) and m (after the last) both reach.
+    """
+    pos = np.searchsorted(key, target_row * big + x)
+    below = pos - 1
+    d_below = np.where(row_pad[below] == target_row, np.abs(x_pad[below] - x), np.inf)
+    d_above = np.where(row_pad[pos] == target_row, np.abs(x_pad[pos] - x), np.inf)
+    above_wins = d_above < d_below  # ties go to the point below
+    return np.where(above_wins, pos, below), np.where(above_wins, d_above, d_below)
+
+
+def _chain(sense: np.ndarray, t: np.ndarray, j: np.ndarray, x: np.ndarray, n: int,
+           n_p: int, max_dx: np.ndarray):
     """Link points into chains by mutual nearest neighbours; return order and chain starts."""
     row = (sense > 0).astype(np.int64) * (n + 2) + t  # one "row" per sense and time
+    # points of one row are at least two grid scales apart, so ordering by grid scale
+    # orders by refined scale too: an integer key gives the order of (row, x)
+    order = np.argsort(row * n_p + j)
+    row, x, max_dx = row[order], x[order], max_dx[order]
     big = float(np.max(x)) + 4.0
     key = row * big + x
-    order = np.argsort(key, kind="stable")
-    row, x, key, max_dx = row[order], x[order], key[order], max_dx[order]
     m = len(key)
-
-    def nearest(target_row):
-        pos = np.searchsorted(key, target_row * big + x)
-        best = np.full(m, -1, dtype=np.int64)
-        best_d = np.full(m, np.inf)
-        for cand in (pos - 1, pos):
-            c = np.clip(cand, 0, m - 1)
-            ok = (cand >= 0) & (cand < m) & (row[c] == target_row)
-            d = np.where(ok, np.abs(x[c] - x), np.inf)
-            better = d < best_d
-            best = np.where(better, c, best)
-            best_d = np.where(better, d, best_d)
-        return best, best_d
-
-    nxt, d_nxt = nearest(row + 1)
-    prv, _ = nearest(row - 1)
+    row_pad = np.append(row, -10)
+    x_pad = np.append(x, 0.0)
+    nxt, d_nxt = _nearest(key, row_pad, x_pad, x, row + 1, big)
+    prv, _ = _nearest(key, row_pad, x_pad, x, row - 1, big)
+    linked = np.flatnonzero(d_nxt <= max_dx)
+    linked = linked[prv[nxt[linked]] == linked]
     idx = np.arange(m)
-    linked = (nxt >= 0) & (d_nxt <= max_dx)
-    linked[linked] = prv[nxt[linked]] == idx[linked]
-    pred = np.full(m, -1, dtype=np.int64)
-    pred[nxt[linked]] = idx[linked]
+    root = idx.copy()
+    root[nxt[linked]] = linked  # predecessor, or the point itself at a chain start
     # pointer jumping to the first point of every chain
-    root = np.where(pred >= 0, pred, idx)
     while True:
         new = root[root]
         if np.array_equal(new, root):
             break
         root = new
-    chain_order = np.lexsort((row, root))
-    final = order[chain_order]
-    r = root[chain_order]
-    starts = np.flatnonzero(np.r_[True, r[1:] != r[:-1]])
-    return final, np.r_[starts, len(final)]
+    # chains in the order of their first points, points in time order within a chain
+    is_start = root == idx
+    chain = (np.cumsum(is_start) - 1)[root]
+    starts = np.r_[0, np.cumsum(np.bincount(chain))]
+    final = np.empty(m, dtype=np.int64)
+    final[starts[chain] + (row - row[root])] = order
+    return final, starts
 
 
 def _own_frequency(w_own: np.ndarray, starts: np.ndarray, dt_s: float) -> np.ndarray:
@@ -530,6 +553,43 @@ def _period_samples(x: np.ndarray, config: WaveletConfig) -> np.ndarray:
     return config.min_period_samples * 2.0 ** (x / config.periods_per_octave)
 
 
+def _candidates_from_points(pts, n: int, n_p: int, config: WaveletConfig,
+                            wavelet_config: WaveletConfig,
+                            noise_variance: np.ndarray | None) -> Candidates | None:
+    """Chain refined points, prune short chains and compute the noise statistic."""
+    if pts is None:
+        return None
+    sense, t, j, x, log_amp = pts
+    period = _period_samples(x, wavelet_config)
+    # the bound per step follows from the bound per cycle: (1 + c)^(dt / T) - 1
+    max_dx = math.log1p(config.max_frequency_change_per_cycle) / period * \
+        config.periods_per_octave / math.log(2.0)
+    order, starts = _chain(sense, t, j, x, n, n_p, max_dx)
+    cyc_pt = 1.0 / period[order]
+    cycles = np.add.reduceat(cyc_pt, starts[:-1])
+    keep = cycles >= config.min_cycles
+    if not np.any(keep):
+        return None
+    lengths = np.diff(starts)
+    point_keep = np.repeat(keep, lengths)
+    order = order[point_keep]
+    cyc_pt = cyc_pt[point_keep]
+    new_starts = np.r_[0, np.cumsum(lengths[keep])]
+    sense, t, x, log_amp = sense[order], t[order], x[order], log_amp[order]
+    if noise_variance is not None:
+        lv = np.log(np.maximum(noise_variance, _TINY))
+        s_row = (1 - sense) // 2
+        j0 = np.clip(np.floor(x).astype(np.int64), 0, n_p - 2)
+        f = x - j0
+        log_var = lv[s_row, j0] * (1.0 - f) + lv[s_row, j0 + 1] * f
+        snr2 = np.exp(2.0 * log_amp - log_var)
+        stat = np.add.reduceat(snr2 * cyc_pt, new_starts[:-1])
+    else:
+        snr2 = np.full(len(t), np.nan)
+        stat = np.full(int(keep.sum()), np.nan)
+    return Candidates(sense, t, x, log_amp, snr2, new_starts, cycles[keep], stat)
+
+
 def candidate_ridges(tr: RotaryTransform, config: WaveletConfig | None = None,
                      noise_variance: np.ndarray | None = None) -> Candidates | None:
     """Find and chain ridge points and compute their lengths and noise statistic.
@@ -557,41 +617,62 @@ def candidate_ridges(tr: RotaryTransform, config: WaveletConfig | None = None,
     """
     config = config or tr.config
     n_p, n = tr.w_ccw.shape
-    thr = np.full((2, n_p), config.amplitude_floor_m_s)
-    if noise_variance is not None:
-        thr = np.maximum(thr, config.min_point_snr * np.sqrt(noise_variance))
-    pts = _ridge_points(tr, thr)
-    if pts is None:
+    if n_p < 3 or n == 0:
         return None
-    sense, t, x, log_amp = pts
-    period = _period_samples(x, tr.config)
-    # the bound per step follows from the bound per cycle: (1 + c)^(dt / T) - 1
-    max_dx = math.log1p(config.max_frequency_change_per_cycle) / period * \
-        config.periods_per_octave / math.log(2.0)
-    order, starts = _chain(sense, t, x, n, max_dx)
-    cyc_pt = 1.0 / period[order]
-    cycles = np.add.reduceat(cyc_pt, starts[:-1])
-    keep = cycles >= config.min_cycles
-    if not np.any(keep):
-        return None
-    lengths = np.diff(starts)
-    point_keep = np.repeat(keep, lengths)
-    order = order[point_keep]
-    cyc_pt = cyc_pt[point_keep]
-    new_starts = np.r_[0, np.cumsum(lengths[keep])]
-    sense, t, x, log_amp = sense[order], t[order], x[order], log_amp[order]
-    if noise_variance is not None:
-        lv = np.log(np.maximum(noise_variance, _TINY))
-        s_row = (1 - sense) // 2
-        j0 = np.clip(np.floor(x).astype(np.int64), 0, n_p - 2)
-        f = x - j0
-        log_var = lv[s_row, j0] * (1.0 - f) + lv[s_row, j0 + 1] * f
-        snr2 = np.exp(2.0 * log_amp - log_var)
-        stat = np.add.reduceat(snr2 * cyc_pt, new_starts[:-1])
-    else:
-        snr2 = np.full(len(t), np.nan)
-        stat = np.full(int(keep.sum()), np.nan)
-    return Candidates(sense, t, x, log_amp, snr2, new_starts, cycles[keep], stat)
+    power = _stored_power(tr)
+    thr2 = _squared_thresholds(config, n_p, noise_variance, power.dtype)
+    flat = _maxima(power, thr2, tr.outside_coi(), 1, n_p - 2)
+    return _candidates_from_points(_grid_points(power, flat), n, n_p, config, tr.config,
+                                   noise_variance)
+
+
+def _segment_candidates(z: np.ndarray, dt_s: float, config: WaveletConfig, *,
+                        keep_transform: bool = False, background=None,
+                        calibrating: bool = False):
+    """Transform one segment and find its candidate ridges, one block of scales at a time.
+
+    Each block of the transform is searched for ridge points while it is
+    still in the processor cache (:func:`driftloop.wavelet.inverse_blocks`);
+    the result is the same as :func:`candidate_ridges` on the stored
+    transform.  Unless ``keep_transform``, the transform lives in a
+    per-thread buffer that the next call overwrites.
+
+    Returns
+    -------
+    tuple
+        (transform, both senses as one (2 J, n_fft) array, background, noise
+        variance, candidates or None).
+    """
+    from driftloop import significance as sig
+
+    z, plan = wavelet._checked(z, dt_s, config)
+    halves, periodogram = wavelet._half_spectra(z, plan, dt_s, config.fft_workers)
+    n_p, n = len(plan.periods), plan.n
+    shape = (2 * n_p, plan.n_fft)
+    out = (np.empty(shape, dtype=plan.complex_type) if keep_transform
+           else scratch("ridges.transform", shape, plan.complex_type))
+    tr = wavelet._transform_of(plan, out, periodogram, dt_s, config)
+    var = None
+    if config.significance and n_p >= 3:
+        if not calibrating:  # the calibration runs this function: let it use the buffers first
+            sig.calibrate(config)
+        if background is None:
+            background = sig.fit_background(tr)
+        var = sig.noise_variance(background, tr)
+    if n_p < 3 or n == 0:
+        for _ in wavelet.inverse_blocks(plan, halves, out, config.fft_workers):
+            pass
+        return tr, out, background, var, None
+    power = scratch("ridges.power", (2, n_p, n), halves.dtype)
+    thr2 = _squared_thresholds(config, n_p, var, power.dtype)
+    flats = []
+    for a, b in wavelet.inverse_blocks(plan, halves, out, config.fft_workers, power):
+        # scales a+1 .. b have both neighbours once scales a .. J-1 are done
+        lo, hi = a + 1, min(b, n_p - 2)
+        if lo <= hi:
+            flats.append(_maxima(power, thr2, plan.inside, lo, hi))
+    pts = _grid_points(power, np.concatenate(flats))
+    return tr, out, background, var, _candidates_from_points(pts, n, n_p, config, config, var)
 
 
 def find_ridges(transform: RotaryTransform, config: WaveletConfig | None = None,
@@ -641,18 +722,27 @@ def find_ridges(transform: RotaryTransform, config: WaveletConfig | None = None,
     cand = candidate_ridges(transform, config, var)
     if cand is None:
         return []
+    return _ridges(cand, transform, _both_senses(transform), config, var is not None)
+
+
+def _ridges(cand: Candidates, transform: RotaryTransform, both: np.ndarray,
+            config: WaveletConfig, tested: bool) -> list[Ridge]:
+    """Significance test of the candidates, then the estimates along the ridges kept."""
+    from driftloop import significance as sig
+
+    wc = transform.config
+    n_p = transform.w_ccw.shape[0]
     keep = np.ones(len(cand.cycles), dtype=bool)
     thresholds = np.full(len(cand.cycles), math.nan)
-    if var is not None:
-        thresholds = sig.statistic_threshold(transform, sig.chain_periods(cand, transform.config),
-                                             config)
+    if tested:
+        thresholds = sig.statistic_threshold(transform, sig.chain_periods(cand, wc), config)
         keep = cand.statistic >= thresholds
     if not np.any(keep):
         return []
     lengths = np.diff(cand.starts)
     pts = np.repeat(keep, lengths)
     sense, t, x = cand.sense[pts], cand.t[pts], cand.x[pts]
-    w_own, w_other = _complex_at(transform, sense, t, x, cand.log_amp[pts])
+    w_own, w_other = _complex_at(both, n_p, sense, t, x, cand.log_amp[pts])
     starts = np.r_[0, np.cumsum(lengths[keep])]
     dt = transform.dt_s
     period = _period_samples(x, wc)
@@ -725,6 +815,13 @@ def detect(z: np.ndarray, dt_s: float, config: WaveletConfig | None = None, *,
     RidgeResult
         Ridges, background and periods.
 
+    Notes
+    -----
+    The same as :func:`driftloop.wavelet.rotary_transform` followed by
+    :func:`find_ridges`, but the ridge points are searched block by block
+    while the transform is computed, and the transform is not kept unless
+    asked for (see the Speed section of ``docs/wavelets.md``).
+
     Examples
     --------
     >>> t = np.arange(1200) * 3600.0
@@ -733,14 +830,10 @@ def detect(z: np.ndarray, dt_s: float, config: WaveletConfig | None = None, *,
     >>> print(r.sense_name, f"{r.mean_period_s / 3600:.2f} h {r.mean_radius_m:.0f} m")
     cw 16.90 h 2421 m
     """
-    from driftloop import significance as sig
-
     config = config or WaveletConfig()
-    tr = rotary_transform(z, dt_s, config)
-    background = None
-    if config.significance and tr.w_ccw.shape[0] >= 3:
-        background = sig.fit_background(tr)
-    ridges = find_ridges(tr, config, background)
+    tr, both, background, var, cand = _segment_candidates(z, dt_s, config,
+                                                          keep_transform=keep_transform)
+    ridges = [] if cand is None else _ridges(cand, tr, both, config, var is not None)
     return RidgeResult(ridges, background, tr.periods_s, tr if keep_transform else None)
 
 

@@ -83,7 +83,7 @@ import numpy as np
 from scipy.signal import lfilter
 from scipy.special import digamma, polygamma
 
-from driftloop.wavelet import RotaryTransform, WaveletConfig, rotary_transform, wavelet_table
+from driftloop.wavelet import RotaryTransform, WaveletConfig, wavelet_table
 
 __all__ = [
     "NoiseCalibration",
@@ -163,23 +163,70 @@ def _hat_basis(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
     return np.stack([np.interp(x, knots, eye[k]) for k in range(len(knots))], axis=1)
 
 
-def _fit_one(y: np.ndarray, m: np.ndarray, basis: np.ndarray) -> np.ndarray:
-    y = y - (digamma(m) - np.log(m))
-    var = polygamma(1, m)
-    sd = np.sqrt(var)
-    k = basis.shape[1]
-    diff2 = np.diff(np.eye(k), 2, axis=0) if k > 2 else np.zeros((0, k))
-    penalty = SMOOTHING * diff2.T @ diff2
-    use = np.ones(len(y), dtype=bool)
-    coef = np.full(k, np.average(y, weights=1.0 / var))
+class _Binning(NamedTuple):
+    """The parts of the background fit that depend on the segment geometry only (cached)."""
+
+    knots: np.ndarray
+    which: np.ndarray  # bin of every periodogram value, -1 outside
+    counts: np.ndarray  # values per bin, bins that have any
+    have: np.ndarray  # bins that have values
+    basis: np.ndarray  # (bins that have values, knots)
+    offset: np.ndarray  # E[ln mean] - ln S of a bin mean (digamma(m) - ln m)
+    var: np.ndarray  # Var[ln mean] (trigamma(m))
+    penalty: np.ndarray  # second-difference penalty on the knot values
+
+
+@functools.lru_cache(maxsize=32)
+def _binning(n: int, n_fft: int, dt: float) -> _Binning:
+    half = (n_fft + 1) // 2
+    omega = 2.0 * np.pi * np.arange(1, half) / (n_fft * dt)
+    x_lo = math.log(2.0 * 2.0 * math.pi / (n * dt))
+    x_hi = math.log(math.pi / dt)
+    width = BIN_OCTAVES * math.log(2.0)
+    edges = np.arange(x_lo, x_hi + 1e-12, width)
+    if len(edges) < 2:
+        edges = np.array([x_lo, x_hi])
+    n_knots = max(2, int(math.ceil((x_hi - x_lo) / math.log(2.0) - 1e-9)) + 1)
+    knots = np.linspace(x_lo, x_hi, n_knots)
+    which = np.digitize(np.log(omega), edges) - 1
+    which[(which < 0) | (which >= len(edges) - 1)] = -1
+    counts = np.bincount(which[which >= 0], minlength=len(edges) - 1).astype(float)
+    centres = 0.5 * (edges[:-1] + edges[1:])
+    have = counts > 0
+    basis = _hat_basis(centres[have], knots)
+    m = np.maximum(counts[have] * n / n_fft, 1.0)
+    diff2 = np.diff(np.eye(n_knots), 2, axis=0) if n_knots > 2 else np.zeros((0, n_knots))
+    penalty = SMOOTHING * diff2.T @ diff2 + 1e-9 * np.eye(n_knots)
+    out = _Binning(knots, which, counts[have], have, basis, digamma(m) - np.log(m),
+                   polygamma(1, m), penalty)
+    for arr in out:
+        arr.setflags(write=False)
+    return out
+
+
+def _fit(y: np.ndarray, b: _Binning) -> np.ndarray:
+    """Fit the knot values of ln S to the bin means y, one row per rotary sense."""
+    y = y - b.offset
+    var, basis = b.var, b.basis
+    limit = PEAK_SIGMA * np.sqrt(var)
+    coef = np.empty((len(y), basis.shape[1]))
+    for s in range(len(y)):
+        coef[s] = np.average(y[s], weights=1.0 / var)
+    use = np.ones(y.shape, dtype=bool)
+    active = np.ones(len(y), dtype=bool)  # senses still iterating
     for _ in range(8):
-        wb = basis[use] / var[use, None]
-        normal = basis[use].T @ wb + penalty + 1e-9 * np.eye(k)
-        coef = np.linalg.solve(normal, wb.T @ y[use])
-        new = (y - basis @ coef) <= PEAK_SIGMA * sd
-        if new.sum() < 3 or np.array_equal(new, use):
+        rows = np.flatnonzero(active)
+        w = use[rows] / var  # weight 0 drops a bin
+        wb = basis[None, :, :] * w[:, :, None]
+        normal = np.matmul(wb.transpose(0, 2, 1), basis) + b.penalty
+        rhs = np.matmul(wb.transpose(0, 2, 1), y[rows, :, None])
+        coef[rows] = np.linalg.solve(normal, rhs)[:, :, 0]
+        new = (y[rows] - coef[rows] @ basis.T) <= limit
+        done = (new.sum(axis=1) < 3) | np.all(new == use[rows], axis=1)
+        use[rows[~done]] = new[~done]
+        active[rows[done]] = False
+        if not active.any():
             break
-        use = new
     return coef
 
 
@@ -200,35 +247,32 @@ def fit_background(transform: RotaryTransform) -> RotaryBackground:
     -----
     Method in the module docstring (:mod:`driftloop.significance`).
     """
-    n = transform.n_samples
-    dt = transform.dt_s
-    omega = transform.omega_rad_s
-    x_lo = math.log(2.0 * 2.0 * math.pi / (n * dt))
-    x_hi = math.log(math.pi / dt)
-    width = BIN_OCTAVES * math.log(2.0)
-    edges = np.arange(x_lo, x_hi + 1e-12, width)
-    if len(edges) < 2:
-        edges = np.array([x_lo, x_hi])
-    n_knots = max(2, int(math.ceil((x_hi - x_lo) / math.log(2.0) - 1e-9)) + 1)
-    knots = np.linspace(x_lo, x_hi, n_knots)
-    which = np.digitize(np.log(omega), edges) - 1
-    valid = (which >= 0) & (which < len(edges) - 1)
-    counts = np.bincount(which[valid], minlength=len(edges) - 1).astype(float)
-    centres = 0.5 * (edges[:-1] + edges[1:])
-    have = counts > 0
-    log_density = np.full((2, n_knots), math.log(_TINY))
-    basis = _hat_basis(centres[have], knots)
-    m = np.maximum(counts[have] * n / transform.n_fft, 1.0)
-    for s in (0, 1):
-        spec = transform.spectrum[s]
-        total = float(np.sum(spec))
-        if not total > 0 or have.sum() == 0:
-            continue
-        sums = np.bincount(which[valid], weights=spec[valid], minlength=len(edges) - 1)
-        mean = sums[have] / counts[have]
-        y = np.log(np.maximum(mean, total * 1e-30))
-        log_density[s] = _fit_one(y, m, basis)
-    return RotaryBackground(knots, log_density)
+    b = _binning(transform.n_samples, transform.n_fft, float(transform.dt_s))
+    log_density = np.full((2, len(b.knots)), math.log(_TINY))
+    if len(b.counts) == 0:
+        return RotaryBackground(b.knots, log_density)
+    valid = b.which >= 0
+    which = b.which[valid]
+    n_bins = len(b.have)
+    spec = transform.spectrum[:, valid]
+    totals = np.sum(transform.spectrum, axis=1)
+    fitted = [s for s in (0, 1) if totals[s] > 0]
+    if not fitted:
+        return RotaryBackground(b.knots, log_density)
+    y = np.empty((len(fitted), len(b.counts)))
+    for i, s in enumerate(fitted):
+        sums = np.bincount(which, weights=spec[s], minlength=n_bins)
+        y[i] = np.log(np.maximum(sums[b.have] / b.counts, totals[s] * 1e-30))
+    log_density[fitted] = _fit(y, b)
+    return RotaryBackground(b.knots, log_density)
+
+
+@functools.lru_cache(maxsize=8)
+def _squared_table(n_fft: int, config: WaveletConfig, count: int) -> np.ndarray:
+    periods = config.min_period_samples * 2.0 ** (np.arange(count) / config.periods_per_octave)
+    sq = np.square(wavelet_table(n_fft, periods, config), dtype=float)
+    sq.setflags(write=False)
+    return sq
 
 
 def noise_variance(background: RotaryBackground, transform: RotaryTransform) -> np.ndarray:
@@ -249,12 +293,19 @@ def noise_variance(background: RotaryBackground, transform: RotaryTransform) -> 
         the discrete form of the integral in the module docstring).
     """
     dt = transform.dt_s
-    periods = transform.periods_s / dt
-    table = wavelet_table(transform.n_fft, periods, transform.config)
+    sq = _squared_table(transform.n_fft, _table_config(transform.config),
+                        len(transform.periods_s))
     omega = transform.omega_rad_s
     dens = np.stack((background.density(omega), background.density(-omega)))
-    sq = np.square(table, dtype=float)
-    return np.einsum("jk,sk->sj", sq, dens) / (4.0 * transform.n_fft * dt)
+    return (dens @ sq.T) / (4.0 * transform.n_fft * dt)
+
+
+@functools.lru_cache(maxsize=32)
+def _table_config(config: WaveletConfig) -> WaveletConfig:
+    """Reduce a configuration to what the wavelet table depends on (a cache key)."""
+    return WaveletConfig(beta=config.beta, gamma=config.gamma,
+                         periods_per_octave=config.periods_per_octave,
+                         min_period_samples=config.min_period_samples, dtype=config.dtype)
 
 
 def analysed_area(transform: RotaryTransform) -> float:
@@ -307,6 +358,7 @@ class NoiseCalibration(NamedTuple):
                        0, len(self.band_edges) - 1)
 
 
+@functools.lru_cache(maxsize=64)
 def _calibration_config(config: WaveletConfig) -> WaveletConfig:
     return dataclasses.replace(config, amplitude_floor_m_s=0.0, significance=True,
                                max_period_s=CALIBRATION_MAX_PERIOD, bias_correction=False,
@@ -352,7 +404,7 @@ def _noise_record(rng: np.random.Generator, ar: float) -> np.ndarray:
 
 @functools.lru_cache(maxsize=8)
 def _calibrate(config: WaveletConfig) -> NoiseCalibration:
-    from driftloop.ridges import candidate_ridges
+    from driftloop.ridges import _segment_candidates
 
     t_min = config.min_period_samples
     edges = np.r_[0.0, t_min * 2.0 ** np.arange(1, CALIBRATION_BANDS)]
@@ -362,9 +414,8 @@ def _calibrate(config: WaveletConfig) -> NoiseCalibration:
         stats, durations, bands = [], [], []
         area = np.zeros(len(edges))
         for _ in range(CALIBRATION_RECORDS):
-            tr = rotary_transform(_noise_record(rng, ar), 1.0, config)
-            var = noise_variance(fit_background(tr), tr)
-            cand = candidate_ridges(tr, config, var)
+            tr, _, _, _, cand = _segment_candidates(_noise_record(rng, ar), 1.0, config,
+                                                    calibrating=True)
             area += _band_areas(tr, edges) * CALIBRATION_LENGTH
             if cand is not None:
                 stats.append(cand.statistic)

@@ -125,6 +125,8 @@ from __future__ import annotations
 
 import functools
 import math
+import os
+import threading
 from dataclasses import dataclass
 from typing import NamedTuple
 
@@ -507,6 +509,78 @@ def rotary_transform(z: np.ndarray, dt_s: float, config: WaveletConfig | None = 
     0.20 0.00
     """
     config = config or WaveletConfig()
+    z, plan = _checked(z, dt_s, config)
+    halves, periodogram = _half_spectra(z, plan, dt_s, config.fft_workers)
+    n_p = len(plan.periods)
+    out = np.empty((2 * n_p, plan.n_fft), dtype=plan.complex_type)
+    for _ in inverse_blocks(plan, halves, out, config.fft_workers):
+        pass
+    return _transform_of(plan, out, periodogram, dt_s, config)
+
+
+# -- the transform in blocks of scales ------------------------------------------------------
+#
+# The inverse FFTs run a few scales at a time, the longest periods first, so
+# that the spectrum times the wavelet is formed in a small buffer that stays
+# in the processor cache and callers can use each block of the transform
+# (e.g. its squared modulus) while it is still there.  The wavelet table is
+# zero above a cut-off bin that falls with the period, so only the bins below
+# it are multiplied; going from long to short periods the band only widens,
+# so every value left in the buffer by the previous block is overwritten.
+
+#: Bytes of spectrum per block of scales (both senses), about a core's L2 cache.
+BLOCK_BYTES = 2 ** 20
+
+
+class _Plan(NamedTuple):
+    """Everything about a transform that depends on the segment length only (cached)."""
+
+    n: int
+    periods: np.ndarray  # sample intervals, (J,)
+    coi: np.ndarray  # samples masked at each end, (J,)
+    n_fft: int
+    half: int  # bins 1 .. half - 1 are strictly positive
+    complex_type: type
+    multiplier: np.ndarray  # (J, 2 (half - 1)) table with each value twice (re, im)
+    blocks: tuple  # (a, b, h): scales a .. b-1, table columns 0 .. h-1; long periods first
+    block_size: int
+    inside: np.ndarray  # (J, N) bool: outside the cone of influence
+
+
+@functools.lru_cache(maxsize=8)
+def _plan(n: int, dt_s: float, config: WaveletConfig) -> _Plan:
+    complex_t = np.complex64 if config.dtype == "float32" else np.complex128
+    periods = transform_periods_samples(n, config, dt_s)
+    periods.setflags(write=False)
+    coi = np.ceil(config.coi * config.duration * periods / (2.0 * np.pi)).astype(np.int64)
+    coi.setflags(write=False)
+    pad = int(coi[-1]) if len(coi) else 0
+    n_fft = scipy.fft.next_fast_len(n + pad)
+    half = (n_fft + 1) // 2
+    n_p = len(periods)
+    t = np.arange(n)
+    inside = (t[None, :] >= coi[:, None]) & (t[None, :] < n - coi[:, None])
+    inside.setflags(write=False)
+    if n_p == 0:
+        empty = np.zeros((0, 0))
+        return _Plan(n, periods, coi, n_fft, half, complex_t, empty, (), 1, inside)
+    table = wavelet_table(n_fft, periods, config)
+    nonzero = table != 0
+    # columns up to the last nonzero value of each row; rows never widen with the period
+    band = np.where(nonzero.any(axis=1), table.shape[1] - np.argmax(nonzero[:, ::-1], axis=1), 0)
+    band = np.maximum.accumulate(band[::-1])[::-1]
+    multiplier = np.repeat(table, 2, axis=1)
+    multiplier.setflags(write=False)
+    size = max(2, BLOCK_BYTES // (2 * n_fft * np.dtype(complex_t).itemsize))
+    blocks = []
+    for b in range(n_p, 0, -size):
+        a = max(0, b - size)
+        blocks.append((a, b, int(band[a])))
+    return _Plan(n, periods, coi, n_fft, half, complex_t, multiplier, tuple(blocks), size,
+                 inside)
+
+
+def _checked(z: np.ndarray, dt_s: float, config: WaveletConfig) -> tuple[np.ndarray, _Plan]:
     z = np.asarray(z)
     if z.ndim != 1:
         raise ValueError(f"z must be one-dimensional, got shape {z.shape}")
@@ -514,39 +588,118 @@ def rotary_transform(z: np.ndarray, dt_s: float, config: WaveletConfig | None = 
         raise ValueError(f"dt_s must be > 0, got {dt_s}")
     if not np.all(np.isfinite(z)):
         raise ValueError("z must be finite (one gap-free segment)")
-    n = z.shape[0]
-    complex_t = np.complex64 if config.dtype == "float32" else np.complex128
-    periods = transform_periods_samples(n, config, dt_s)
-    k_coi = config.coi
-    p = config.duration
-    coi = np.ceil(k_coi * p * periods / (2.0 * np.pi)).astype(np.int64)
-    pad = int(coi[-1]) if len(coi) else 0
-    n_fft = scipy.fft.next_fast_len(n + pad)
-    half = (n_fft + 1) // 2  # bins 1 .. half-1 are strictly positive
+    return z, _plan(int(z.shape[0]), float(dt_s), config)
 
-    zc = np.zeros(n_fft, dtype=complex_t)
+
+def _half_spectra(z: np.ndarray, plan: _Plan, dt_s: float, workers: int
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """Halved spectra of z and conj z on the positive bins, interleaved (re, im), and periodogram.
+
+    Returns a real (2, 2 (half - 1)) array and the (2, half - 1) rotary periodogram.
+    """
+    n, n_fft, half = plan.n, plan.n_fft, plan.half
+    zc = np.zeros(n_fft, dtype=plan.complex_type)
     zc[:n] = z - z.mean() if n else z
-    spec = scipy.fft.fft(zc, workers=config.fft_workers)
+    spec = scipy.fft.fft(zc, workers=workers)
     pos = spec[1:half]
     neg_conj = np.conj(spec[n_fft - 1: n_fft - half: -1])  # FFT of conj z at +omega_k
+    halves = np.empty((2, half - 1), dtype=plan.complex_type)
+    # the factor 1/2 of the rotary split is folded into the spectra
+    np.multiply(pos, 0.5, out=halves[0])
+    np.multiply(neg_conj, 0.5, out=halves[1])
     periodogram = np.empty((2, half - 1))
     if n:
         periodogram[0] = np.abs(pos) ** 2 * (dt_s / n)
         periodogram[1] = np.abs(neg_conj) ** 2 * (dt_s / n)
+    return halves.view(halves.real.dtype), periodogram
 
-    n_p = len(periods)
-    if n_p == 0:
-        empty = np.zeros((0, n), dtype=complex_t)
-        return RotaryTransform(periods * dt_s, empty, empty.copy(), coi, float(dt_s), n_fft,
-                               periodogram, config)
-    table = wavelet_table(n_fft, periods, config)
-    work = np.zeros((2 * n_p, n_fft), dtype=complex_t)
-    # real table times complex spectrum, as two real products; the factor 1/2 of
-    # the rotary split is folded into the spectra
-    for rows, spectrum in ((slice(0, n_p), 0.5 * pos), (slice(n_p, 2 * n_p), 0.5 * neg_conj)):
-        target = work[rows, 1:half]
-        np.multiply(table, spectrum.real[None, :], out=target.real)
-        np.multiply(table, spectrum.imag[None, :], out=target.imag)
-    out = scipy.fft.ifft(work, axis=-1, overwrite_x=True, workers=config.fft_workers)
-    return RotaryTransform(periods * dt_s, out[:n_p, :n], out[n_p:, :n], coi, float(dt_s),
-                           n_fft, periodogram, config)
+
+def _transform_of(plan: _Plan, out: np.ndarray, periodogram: np.ndarray, dt_s: float,
+                  config: WaveletConfig) -> RotaryTransform:
+    n_p, n = len(plan.periods), plan.n
+    return RotaryTransform(plan.periods * dt_s, out[:n_p, :n], out[n_p:, :n], plan.coi,
+                           float(dt_s), plan.n_fft, periodogram, config)
+
+
+_SCRATCH = threading.local()
+
+
+def scratch(name: str, shape: tuple, dtype) -> np.ndarray:
+    """Return a reusable per-thread work array (contents undefined).
+
+    Fresh multi-megabyte arrays for every segment cost as much in page
+    faults and zeroing as the arithmetic done on them.
+    """
+    store = getattr(_SCRATCH, "arrays", None)
+    if store is None:
+        store = _SCRATCH.arrays = {}
+    arr = store.get(name)
+    size = math.prod(shape)
+    if arr is None or arr.dtype != np.dtype(dtype) or arr.size < size:
+        arr = store[name] = np.empty(size, dtype=dtype)
+    return arr[:size].reshape(shape)
+
+
+try:  # pocketfft as used by scipy.fft, able to write into a given array
+    from scipy.fft._pocketfft import pypocketfft as _pocketfft
+except ImportError:  # pragma: no cover - other scipy layouts
+    _pocketfft = None
+
+
+def _ifft_into(src: np.ndarray, dst: np.ndarray, workers: int) -> None:
+    """Write the inverse FFT of ``src`` along its last axis into ``dst`` (as scipy.fft.ifft)."""
+    if _pocketfft is not None:
+        threads = workers if workers > 0 else max(1, (os.cpu_count() or 1) + 1 + workers)
+        try:
+            _pocketfft.c2c(src, (src.ndim - 1,), False, 2, dst, threads)
+            return
+        except (TypeError, ValueError):  # pragma: no cover - a changed private interface
+            pass
+    dst[...] = scipy.fft.ifft(src, axis=-1, workers=workers)
+
+
+def inverse_blocks(plan: _Plan, halves: np.ndarray, out: np.ndarray, workers: int,
+                   power: np.ndarray | None = None):
+    """Fill ``out`` with the rotary transform block by block, longest periods first.
+
+    Parameters
+    ----------
+    plan : _Plan
+        From :func:`_plan`.
+    halves : numpy.ndarray
+        Interleaved half spectra from :func:`_half_spectra`.
+    out : numpy.ndarray
+        (2 J, n_fft) complex array: rows 0 .. J-1 receive W+, rows J .. 2J-1 W-.
+    workers : int
+        ``workers`` of the FFTs.
+    power : numpy.ndarray, optional
+        (2, J, N) real array that receives |W|^2 for t < N, block by block.
+
+    Yields
+    ------
+    tuple of int
+        (a, b): scales a .. b-1 are done (their power too).
+    """
+    n_p, n_fft, n = len(plan.periods), plan.n_fft, plan.n
+    out3 = out.reshape(2, n_p, n_fft)
+    size = plan.block_size
+    buf = scratch("wavelet.spectrum", (2, size, n_fft), plan.complex_type)
+    real = buf.view(halves.dtype)
+    # the buffer may hold wider bands from an earlier segment: start from zeros
+    buf.fill(0)
+    tmp = None
+    if power is not None:
+        tmp = scratch("wavelet.squares", (2, size, 2 * n), halves.dtype)
+    for a, b, h in plan.blocks:
+        c = b - a
+        for s in (0, 1):
+            np.multiply(plan.multiplier[a:b, :2 * h], halves[s, :2 * h],
+                        out=real[s, :c, 2:2 * h + 2])
+        block = out3[:, a:b]
+        _ifft_into(buf[:, :c], block, workers)
+        if power is not None:
+            v = block.view(halves.dtype)[..., :2 * n]
+            sq = tmp[:, :c]
+            np.multiply(v, v, out=sq)
+            np.add(sq[..., 0::2], sq[..., 1::2], out=power[:, a:b])
+        yield a, b
