@@ -348,6 +348,11 @@ class LoopConfig:
         An event is split into forcing episodes where its amplitude (smoothed
         over one period) falls below this fraction of the maxima on both
         sides; 0 never splits.
+    min_speed_m_s : float
+        Smallest speed of a loop event (m/s): the own-sense ridge amplitude
+        (circular speed) for inertial and eddy candidates, the semi-major
+        speed of the ridge ellipse for tidal ones.  Stretches of a ridge
+        below it are not part of any event.
     """
 
     merge_period_tolerance: float = 0.15
@@ -361,6 +366,7 @@ class LoopConfig:
     eddy_period_ratio_min: float = 1.5
     equator_band_deg: float = 5.0
     episode_split_depth: float = 0.5
+    min_speed_m_s: float = 0.05
 
 
 @dataclass(frozen=True)

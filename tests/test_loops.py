@@ -55,7 +55,9 @@ def test_inertial_circle_is_an_inertial_event_with_theory_period_and_radius():
     assert event["period_h"] == pytest.approx(float(inertial_period_s(lat0)) / HOUR, rel=0.01)
     assert event["radius_km"] == pytest.approx(float(inertial_radius_m(0.2, lat0)) / 1e3,
                                                rel=0.03)
-    assert event["radius_fit_km"] == pytest.approx(event["radius_km"], rel=0.1)
+    # the position-based radius of a circle is the same radius (no RMS inflation)
+    assert event["radius_fit_km"] == pytest.approx(float(inertial_radius_m(0.2, lat0)) / 1e3,
+                                                   rel=0.03)
     assert event["period_ratio"] == pytest.approx(1.0, abs=0.02)
     assert 0.8 < event["radius_ratio"] < 1.2
     assert list(events.columns) == list(EVENT_COLUMNS)
@@ -153,3 +155,55 @@ def test_rotary_spectrum_peaks_at_f_on_the_anticyclonic_side():
     mine = spectra.table[spectra.table["drifter_id"] == "D1"]
     near = mine.iloc[(mine["frequency_cpd"] - f_cpd).abs().argsort()[:1]]
     assert float(near["psd_clockwise"].iloc[0]) > 100 * float(near["psd_anticlockwise"].iloc[0])
+
+
+@pytest.mark.parametrize("lat0", [45.0, -30.0])
+def test_decay_time_of_ringing_that_starts_mid_record(lat0):
+    # Free slab-layer ringing Z = A0 exp(-(r + i f)(t - t0)) after a storm at t0
+    # (Pollard & Millard 1970, Deep-Sea Res. 17, from memory): the amplitude
+    # e-folds in 1/r.  Before t0 the drifter only drifts, so the wavelet ramps
+    # up across t0; the fit must not take that ramp for slow decay.
+    efold_h, t0 = 48.0, 7.3 * 86400.0
+    t = np.arange(30 * 24) * HOUR
+    f = float(coriolis_parameter(lat0))
+    ringing = 0.3 * np.exp(-(1.0 / (efold_h * HOUR) + 1j * f) * (t - t0))
+    z = np.where(t >= t0, ringing, 0.0) + complex(0.05, 0.02)
+    events = find_events(track_from_velocity(z.real, z.imag, lat0, -30.0)).events
+    inertial = events[events["kind"] == "inertial"]
+    assert len(inertial) == 1
+    assert inertial.iloc[0]["decay_time_h"] == pytest.approx(efold_h, rel=0.10)
+    assert inertial.iloc[0]["start"] >= T0 + pd.Timedelta(seconds=t0) - pd.Timedelta(hours=12)
+
+
+def test_loops_slower_than_the_speed_threshold_are_no_event():
+    # an inertial circle at 3 cm/s is below the default min_speed_m_s (5 cm/s)
+    weak = inertial_track(45.0, speed=0.03)
+    assert len(find_events(weak).events) == 0
+    events = find_events(weak, LoopConfig(min_speed_m_s=0.02)).events
+    assert events["kind"].tolist() == ["inertial"]
+    assert events.iloc[0]["speed_m_s"] == pytest.approx(0.03, rel=0.02)
+
+
+def test_ringing_inside_a_cyclonic_eddy_is_inertial_at_the_shifted_frequency():
+    # Inside an eddy near-inertial motion turns at f_eff = f + zeta/2 (Kunze 1985,
+    # J. Phys. Oceanogr. 15); a solid-body core turning at omega has zeta = 2 omega
+    # (textbook kinematics), so f_eff = f + omega.  At 45 N in an 80-h cyclonic
+    # eddy that is a 13.97-h period, 0.83 of T_i: outside the f-plane band alone.
+    lat0 = 45.0
+    f = float(coriolis_parameter(lat0))
+    omega = 2 * np.pi / (80.0 * HOUR)
+    t = np.arange(30 * 24) * HOUR
+    z = 0.2 * np.exp(1j * omega * t) + 0.15 * np.exp(-1j * (f + omega) * t) + 0.05
+    events = find_events(track_from_velocity(z.real, z.imag, lat0, -30.0)).events
+    eddy = events[events["kind"] == "eddy"]
+    inertial = events[events["kind"] == "inertial"]
+    assert len(eddy) == 1 and eddy.iloc[0]["spin"] == "cyclonic"
+    assert eddy.iloc[0]["period_h"] == pytest.approx(80.0, rel=0.02)
+    assert len(inertial) == 1 and (events["kind"] == "other").sum() == 0
+    expected_h = 2 * np.pi / (f + omega) / HOUR
+    assert inertial.iloc[0]["period_h"] == pytest.approx(expected_h, rel=0.01)
+    assert inertial.iloc[0]["period_ratio"] < LoopConfig().inertial_period_ratio_min
+    # the same ringing without the eddy is too fast to be inertial
+    z_alone = 0.15 * np.exp(-1j * (f + omega) * t) + 0.05
+    alone = find_events(track_from_velocity(z_alone.real, z_alone.imag, lat0, -30.0)).events
+    assert (alone["kind"] != "inertial").all()
