@@ -417,13 +417,20 @@ def _complex_at(both: np.ndarray, n_p: int, sense: np.ndarray, t: np.ndarray, x:
     s_idx = (1 - sense) // 2
     wm, w0, wp = 0.5 * delta * (delta - 1.0), 1.0 - delta ** 2, 0.5 * delta * (delta + 1.0)
     own_row = s_idx * n_p + j
-    other_row = (1 - s_idx) * n_p + j
-    own = wm * both[own_row - 1, t] + w0 * both[own_row, t] + wp * both[own_row + 1, t]
+    other_row = own_row + (1 - 2 * s_idx) * n_p
+    if both.flags.c_contiguous:
+        flat, stride = both.reshape(-1), both.shape[1]
+        near = np.arange(-1, 2)[:, None]
+        o = flat.take((own_row + near) * stride + t)
+        v = flat.take((other_row + near) * stride + t)
+    else:
+        o = np.stack([both[own_row + d, t] for d in (-1, 0, 1)])
+        v = np.stack([both[other_row + d, t] for d in (-1, 0, 1)])
+    own = wm * o[0] + w0 * o[1] + wp * o[2]
     w_own = np.exp(log_amp) * _unit(own)
-    o = [both[other_row + d, t] for d in (-1, 0, 1)]
-    lm, l0, lp = (np.log(np.maximum(np.abs(v), _TINY)) for v in o)
+    lm, l0, lp = np.log(np.maximum(np.abs(v), _TINY))
     log_other = l0 + 0.5 * (lp - lm) * delta + 0.5 * (lm - 2.0 * l0 + lp) * delta ** 2
-    w_other = np.exp(log_other) * _unit(wm * o[0] + w0 * o[1] + wp * o[2])
+    w_other = np.exp(log_other) * _unit(wm * v[0] + w0 * v[1] + wp * v[2])
     return w_own, w_other
 
 
@@ -444,11 +451,16 @@ def _nearest(key: np.ndarray, row_pad: np.ndarray, x_pad: np.ndarray, x: np.ndar
 
 def _chain(sense: np.ndarray, t: np.ndarray, j: np.ndarray, x: np.ndarray, n: int,
            n_p: int, max_dx: np.ndarray):
-    """Link points into chains by mutual nearest neighbours; return order and chain starts."""
+    """Link points into chains by mutual nearest neighbours; return order and chain starts.
+
+    Points of the same sense and time must come in increasing grid scale ``j``.
+    """
     row = (sense > 0).astype(np.int64) * (n + 2) + t  # one "row" per sense and time
     # points of one row are at least two grid scales apart, so ordering by grid scale
-    # orders by refined scale too: an integer key gives the order of (row, x)
-    order = np.argsort(row * n_p + j)
+    # orders by refined scale too: the order of (row, x) is that of (row, j).  The
+    # points come ordered by j within each row, so a stable sort by row suffices,
+    # a radix sort if the rows fit in 16 bits
+    order = np.argsort(row.astype(np.int16) if 2 * (n + 2) < 2 ** 15 else row, kind="stable")
     row, x, max_dx = row[order], x[order], max_dx[order]
     big = float(np.max(x)) + 4.0
     key = row * big + x
@@ -481,14 +493,28 @@ def _own_frequency(w_own: np.ndarray, starts: np.ndarray, dt_s: float) -> np.nda
     """Phase-derivative frequency: mean of the adjacent increments within each ridge."""
     m = len(w_own)
     inc = np.angle(w_own[1:] * np.conj(w_own[:-1])) / dt_s  # between points i and i + 1
-    valid = np.ones(max(m - 1, 0), dtype=bool)
-    valid[starts[1:-1] - 1] = False  # increments across ridge boundaries are not used
-    before = np.r_[0.0, np.where(valid, inc, 0.0)]
-    after = np.r_[np.where(valid, inc, 0.0), 0.0]
-    nb = np.r_[0, valid.astype(int)]
-    na = np.r_[valid.astype(int), 0]
-    count = nb + na
-    return np.where(count > 0, (before + after) / np.maximum(count, 1), np.nan)
+    valid = np.ones(max(m - 1, 0))
+    valid[starts[1:-1] - 1] = 0.0  # increments across ridge boundaries are not used
+    inc *= valid
+    total = np.zeros(m)
+    total[1:] += inc
+    total[:-1] += inc
+    count = np.zeros(m)
+    count[1:] += valid
+    count[:-1] += valid
+    return np.where(count > 0, total / np.maximum(count, 1.0), np.nan)
+
+
+def _power_sums(n_below: np.ndarray, n_above: np.ndarray) -> tuple:
+    """Return the sums of u^p, p = 0 .. 4, over the integers u = -n_below .. n_above."""
+    def faulhaber(n):  # sum of u^p for u = 1 .. n, p = 1 .. 4
+        g1 = n * (n + 1.0) / 2.0
+        g2 = g1 * (2.0 * n + 1.0) / 3.0
+        return g1, g2, g1 * g1, g2 * (3.0 * n * n + 3.0 * n - 1.0) / 5.0
+
+    a1, a2, a3, a4 = faulhaber(n_above)
+    b1, b2, b3, b4 = faulhaber(n_below)
+    return n_above + n_below + 1.0, a1 - b1, a2 + b2, a3 - b3, a4 + b4
 
 
 def _local_quadratic(ys: np.ndarray, starts: np.ndarray, half: np.ndarray
@@ -497,36 +523,34 @@ def _local_quadratic(ys: np.ndarray, starts: np.ndarray, half: np.ndarray
 
     Point i is fitted over [i - half_i, i + half_i], clipped to its own ridge
     (a Savitzky-Golay fit whose window shrinks at the ridge ends), for every
-    row of ``ys`` (shape (R, m)).  Vectorised through cumulative sums of k^q
-    and k^q y, k the index within the ridge.
+    row of ``ys`` (shape (R, m)).  The sums of u^p (u the offset from i) are
+    in closed form; the sums of u^p y come from cumulative sums of k^q y, k
+    the index within the ridge.
     """
     m = ys.shape[1]
-    ridge = np.repeat(np.arange(len(starts) - 1), np.diff(starts))
-    first = starts[:-1][ridge]
-    last = starts[1:][ridge] - 1
+    lengths = np.diff(starts)
+    first = np.repeat(starts[:-1], lengths)
     idx = np.arange(m)
-    lo = np.maximum(idx - half, first)
-    hi = np.minimum(idx + half, last)
-    i = (idx - first).astype(float)  # small numbers: index within the ridge
-    powers = np.stack([i ** q for q in range(5)])
-    ck = np.concatenate((np.zeros((5, 1)), np.cumsum(powers, axis=1)), axis=1)
-    sk = ck[:, hi + 1] - ck[:, lo]  # sums of k^q over each window
-    # sums of u^p with u = k - i, by the binomial expansion
-    su = [sk[0],
-          sk[1] - i * sk[0],
-          sk[2] - 2 * i * sk[1] + i ** 2 * sk[0],
-          sk[3] - 3 * i * sk[2] + 3 * i ** 2 * sk[1] - i ** 3 * sk[0],
-          sk[4] - 4 * i * sk[3] + 6 * i ** 2 * sk[2] - 4 * i ** 3 * sk[1] + i ** 4 * sk[0]]
-    rhs = []
-    for y in ys:
-        cy = np.concatenate((np.zeros((3, 1)), np.cumsum(powers[:3] * y, axis=1)), axis=1)
-        sy = cy[:, hi + 1] - cy[:, lo]
-        rhs.append((sy[0], sy[1] - i * sy[0], sy[2] - 2 * i * sy[1] + i ** 2 * sy[0]))
+    i = idx - first  # index within the ridge
+    below = np.minimum(half, i)
+    above = np.minimum(half, np.repeat(lengths, lengths) - 1 - i)
+    a, b, c, d, e = _power_sums(below.astype(float), above.astype(float))
+    lo = idx - below
+    hi = idx + above + 1
+    i = i.astype(float)
+    rows = ys.shape[0]
+    weighted = np.empty((3 * rows, m + 1))
+    weighted[:, 0] = 0.0
+    np.cumsum(ys, axis=1, out=weighted[:rows, 1:])
+    np.cumsum(ys * i, axis=1, out=weighted[rows:2 * rows, 1:])
+    np.cumsum(ys * (i * i), axis=1, out=weighted[2 * rows:, 1:])
+    sy = weighted[:, hi] - weighted[:, lo]  # sums of k^q y over each window
     # normal equations [[a b c] [b c d] [c d e]] (c0 c1 c2) = (r0 r1 r2), Cramer's rule
-    a, b, c, d, e = su
     det = a * (c * e - d * d) - b * (b * e - c * d) + c * (b * d - c * c)
     slopes, curvatures = [], []
-    for r0, r1, r2 in rhs:
+    for r in range(rows):
+        y0, y1, y2 = sy[r], sy[rows + r], sy[2 * rows + r]
+        r0, r1, r2 = y0, y1 - i * y0, y2 - 2.0 * i * y1 + i * i * y0  # sums of u^p y
         c1 = a * (r1 * e - d * r2) - r0 * (b * e - d * c) + c * (b * r2 - r1 * c)
         c2 = a * (c * r2 - r1 * d) - b * (b * r2 - r1 * c) + r0 * (b * d - c * c)
         slopes.append(c1 / det)
@@ -671,6 +695,7 @@ def _segment_candidates(z: np.ndarray, dt_s: float, config: WaveletConfig, *,
         lo, hi = a + 1, min(b, n_p - 2)
         if lo <= hi:
             flats.append(_maxima(power, thr2, plan.inside, lo, hi))
+    flats.reverse()  # increasing scale, as _chain needs
     pts = _grid_points(power, np.concatenate(flats))
     return tr, out, background, var, _candidates_from_points(pts, n, n_p, config, config, var)
 
@@ -754,10 +779,10 @@ def _ridges(cand: Candidates, transform: RotaryTransform, both: np.ndarray,
         w_own = w_own / factor
         w_other = w_other / factor
     ccw = sense > 0
-    w_ccw = np.where(ccw, w_own, w_other)
-    w_cw = np.where(ccw, w_other, w_own)
     amp_own, ph_own = np.abs(w_own), np.angle(w_own)
-    amp_ccw, ph_ccw, amp_cw, ph_cw = np.abs(w_ccw), np.angle(w_ccw), np.abs(w_cw), np.angle(w_cw)
+    amp_other, ph_other = np.abs(w_other), np.angle(w_other)
+    amp_ccw, amp_cw = np.where(ccw, amp_own, amp_other), np.where(ccw, amp_other, amp_own)
+    ph_ccw, ph_cw = np.where(ccw, ph_own, ph_other), np.where(ccw, ph_other, ph_own)
     snr = np.sqrt(cand.snr2[pts])
     ridges = []
     for k, i in enumerate(np.flatnonzero(keep)):

@@ -56,8 +56,12 @@ Method
    bands of D_b(c_b) A_b; :func:`statistic_threshold` sets every band to the
    density ``false_positive_rate`` / A, taking the largest threshold any of
    the noise processes needs.  D is fitted as exponential in c over its
-   upper tail.  The calibration is cached for the process (a few seconds per
-   distinct set of wavelet and ridge parameters).
+   upper tail.  The calibration takes about a second per distinct set of
+   wavelet and ridge parameters; it is kept for the process and stored in
+   the driftloop cache folder (:func:`driftloop.landmask.cache_dir`) under a
+   name made from those parameters, the calibration constants, the source
+   of the wavelet, ridge and significance modules and the NumPy and SciPy
+   versions, so that a change to any of them simulates afresh.
    ``tests/test_significance.py`` checks the resulting rate on white and
    red noise.
 
@@ -76,7 +80,12 @@ from __future__ import annotations
 
 import dataclasses
 import functools
+import hashlib
 import math
+import os
+import tempfile
+import zipfile
+from pathlib import Path
 from typing import NamedTuple
 
 import numpy as np
@@ -174,6 +183,8 @@ class _Binning(NamedTuple):
     offset: np.ndarray  # E[ln mean] - ln S of a bin mean (digamma(m) - ln m)
     var: np.ndarray  # Var[ln mean] (trigamma(m))
     penalty: np.ndarray  # second-difference penalty on the knot values
+    weighted: np.ndarray  # basis / var
+    outer: np.ndarray  # (bins, knots^2): outer products of the basis rows / var
 
 
 @functools.lru_cache(maxsize=32)
@@ -197,8 +208,11 @@ def _binning(n: int, n_fft: int, dt: float) -> _Binning:
     m = np.maximum(counts[have] * n / n_fft, 1.0)
     diff2 = np.diff(np.eye(n_knots), 2, axis=0) if n_knots > 2 else np.zeros((0, n_knots))
     penalty = SMOOTHING * diff2.T @ diff2 + 1e-9 * np.eye(n_knots)
-    out = _Binning(knots, which, counts[have], have, basis, digamma(m) - np.log(m),
-                   polygamma(1, m), penalty)
+    var = polygamma(1, m)
+    weighted = basis / var[:, None]
+    outer = (weighted[:, :, None] * basis[:, None, :]).reshape(len(basis), -1)
+    out = _Binning(knots, which, counts[have], have, basis, digamma(m) - np.log(m), var,
+                   penalty, weighted, outer)
     for arr in out:
         arr.setflags(write=False)
     return out
@@ -207,26 +221,19 @@ def _binning(n: int, n_fft: int, dt: float) -> _Binning:
 def _fit(y: np.ndarray, b: _Binning) -> np.ndarray:
     """Fit the knot values of ln S to the bin means y, one row per rotary sense."""
     y = y - b.offset
-    var, basis = b.var, b.basis
-    limit = PEAK_SIGMA * np.sqrt(var)
-    coef = np.empty((len(y), basis.shape[1]))
-    for s in range(len(y)):
-        coef[s] = np.average(y[s], weights=1.0 / var)
-    use = np.ones(y.shape, dtype=bool)
-    active = np.ones(len(y), dtype=bool)  # senses still iterating
+    basis, k = b.basis, b.basis.shape[1]
+    limit = PEAK_SIGMA * np.sqrt(b.var)
+    use = np.ones(y.shape)  # 1: bin used, 0: dropped as a peak
+    coef = y[:, :k]
     for _ in range(8):
-        rows = np.flatnonzero(active)
-        w = use[rows] / var  # weight 0 drops a bin
-        wb = basis[None, :, :] * w[:, :, None]
-        normal = np.matmul(wb.transpose(0, 2, 1), basis) + b.penalty
-        rhs = np.matmul(wb.transpose(0, 2, 1), y[rows, :, None])
-        coef[rows] = np.linalg.solve(normal, rhs)[:, :, 0]
-        new = (y[rows] - coef[rows] @ basis.T) <= limit
-        done = (new.sum(axis=1) < 3) | np.all(new == use[rows], axis=1)
-        use[rows[~done]] = new[~done]
-        active[rows[done]] = False
-        if not active.any():
+        normal = (use @ b.outer).reshape(len(y), k, k) + b.penalty
+        coef = np.linalg.solve(normal, ((use * y) @ b.weighted)[:, :, None])[:, :, 0]
+        new = (y - coef @ basis.T) <= limit
+        # a sense whose set of bins no longer changes keeps it (and so its fit)
+        stop = (new.sum(axis=1) < 3) | np.all(new == use, axis=1)
+        if stop.all():
             break
+        use = np.where(stop[:, None], use, new)
     return coef
 
 
@@ -268,11 +275,20 @@ def fit_background(transform: RotaryTransform) -> RotaryBackground:
 
 
 @functools.lru_cache(maxsize=8)
-def _squared_table(n_fft: int, config: WaveletConfig, count: int) -> np.ndarray:
+def _squared_table(n_fft: int, config: WaveletConfig, count: int) -> tuple:
+    """Psi(s_j omega_k)^2 in blocks of rows, each cut where its rows become zero."""
     periods = config.min_period_samples * 2.0 ** (np.arange(count) / config.periods_per_octave)
     sq = np.square(wavelet_table(n_fft, periods, config), dtype=float)
-    sq.setflags(write=False)
-    return sq
+    nonzero = sq != 0
+    band = np.where(nonzero.any(axis=1), sq.shape[1] - np.argmax(nonzero[:, ::-1], axis=1), 0)
+    blocks = []
+    for a in range(0, count, 8):
+        b = min(count, a + 8)
+        h = int(band[a:b].max()) if b > a else 0
+        block = np.ascontiguousarray(sq[a:b, :h])
+        block.setflags(write=False)
+        blocks.append((a, b, h, block))
+    return tuple(blocks)
 
 
 def noise_variance(background: RotaryBackground, transform: RotaryTransform) -> np.ndarray:
@@ -293,11 +309,17 @@ def noise_variance(background: RotaryBackground, transform: RotaryTransform) -> 
         the discrete form of the integral in the module docstring).
     """
     dt = transform.dt_s
-    sq = _squared_table(transform.n_fft, _table_config(transform.config),
-                        len(transform.periods_s))
+    count = len(transform.periods_s)
     omega = transform.omega_rad_s
-    dens = np.stack((background.density(omega), background.density(-omega)))
-    return (dens @ sq.T) / (4.0 * transform.n_fft * dt)
+    x = np.log(np.maximum(omega, _TINY))
+    dens = np.exp(np.stack([np.interp(x, background.knots, background.log_density[s])
+                            for s in (0, 1)]))  # S(+omega), S(-omega)
+    out = np.empty((2, count))
+    for a, b, h, block in _squared_table(transform.n_fft, _table_config(transform.config),
+                                         count):
+        np.matmul(dens[:, :h], block.T, out=out[:, a:b])
+    out /= 4.0 * transform.n_fft * dt
+    return out
 
 
 @functools.lru_cache(maxsize=32)
@@ -404,6 +426,67 @@ def _noise_record(rng: np.random.Generator, ar: float) -> np.ndarray:
 
 @functools.lru_cache(maxsize=8)
 def _calibrate(config: WaveletConfig) -> NoiseCalibration:
+    path = _calibration_file(config)
+    cal = _read_calibration(path) if path is not None else None
+    if cal is None:
+        cal = _simulate(config)
+        if path is not None:
+            _write_calibration(path, cal)
+    return cal
+
+
+def _calibration_file(config: WaveletConfig) -> Path | None:
+    """Cache file of a calibration, named by everything that can change its result."""
+    import scipy
+
+    from driftloop.landmask import cache_dir
+
+    here = Path(__file__).resolve().parent
+    digest = hashlib.sha256()
+    try:
+        for name in ("wavelet.py", "ridges.py", "significance.py"):
+            digest.update((here / name).read_bytes())
+    except OSError:
+        return None
+    digest.update(repr((config, CALIBRATION_RECORDS, CALIBRATION_LENGTH, CALIBRATION_AR,
+                        CALIBRATION_BANDS, CALIBRATION_MAX_PERIOD, CALIBRATION_SEED,
+                        np.__version__, scipy.__version__)).encode())
+    return cache_dir() / f"ridge_noise_calibration_{digest.hexdigest()[:24]}.npz"
+
+
+def _read_calibration(path: Path) -> NoiseCalibration | None:
+    try:
+        with np.load(path, allow_pickle=False) as f:
+            count = int(f["count"])
+            stats = tuple(f[f"statistic_{i}"] for i in range(count))
+            dens = tuple(f[f"density_{i}"] for i in range(count))
+            return NoiseCalibration(f["band_edges"], stats, dens, int(f["n_records"]))
+    except (OSError, KeyError, ValueError, EOFError, zipfile.BadZipFile):
+        return None
+
+
+def _write_calibration(path: Path, cal: NoiseCalibration) -> None:
+    """Store a calibration atomically; a folder that cannot be written is not an error."""
+    arrays = {"band_edges": cal.band_edges, "count": np.array(len(cal.statistic)),
+              "n_records": np.array(cal.n_records)}
+    for i, (stat, dens) in enumerate(zip(cal.statistic, cal.density, strict=True)):
+        arrays[f"statistic_{i}"] = stat
+        arrays[f"density_{i}"] = dens
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".npz", dir=path.parent)
+    except OSError:
+        return
+    try:
+        with os.fdopen(fd, "wb") as out:
+            np.savez(out, **arrays)
+        os.chmod(tmp, 0o644)
+        os.replace(tmp, path)
+    except OSError:
+        Path(tmp).unlink(missing_ok=True)
+
+
+def _simulate(config: WaveletConfig) -> NoiseCalibration:
     from driftloop.ridges import _segment_candidates
 
     t_min = config.min_period_samples

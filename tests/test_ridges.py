@@ -178,3 +178,28 @@ def test_no_ridges_in_silence_or_below_the_floor():
     assert detect(np.zeros(800, complex), HOUR).ridges == []
     assert detect(circle(800, 15.0, 0.005), HOUR).ridges == []
     assert detect(circle(20, 5.0, 0.3), HOUR).ridges == []
+
+
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+def test_detect_searching_block_by_block_equals_the_stored_transform_path(dtype):
+    # detect finds ridge points while the transform is computed in blocks of scales;
+    # the documented equivalent is rotary_transform followed by find_ridges (same
+    # arithmetic, so the ridges must be identical, not merely close)
+    rng = np.random.default_rng(5)
+    n = 2000
+    z = circle(n, 16.9, 0.2, -1) * np.exp(-np.arange(n) / 500) + circle(n, 12.42, 0.05, 1)
+    z = z + 0.03 * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
+    config = WaveletConfig(dtype=dtype)
+    fused = detect(z, HOUR, config)
+    stored = find_ridges(rotary_transform(z, HOUR, config), config)
+    kept = detect(z, HOUR, config, keep_transform=True)
+    assert len(fused.ridges) == len(stored) == len(kept.ridges) >= 2
+    for a, b, c in zip(fused.ridges, stored, kept.ridges, strict=True):
+        for name in ("index", "frequency_rad_s", "amplitude_m_s", "phase_rad",
+                     "amplitude_ccw_m_s", "amplitude_cw_m_s", "snr"):
+            assert np.array_equal(getattr(a, name), getattr(b, name)), name
+            assert np.array_equal(getattr(a, name), getattr(c, name)), name
+        assert (a.sense, a.statistic, a.threshold) == (b.sense, b.statistic, b.threshold)
+    tr = rotary_transform(z, HOUR, config)
+    assert np.array_equal(kept.transform.w_ccw, tr.w_ccw)
+    assert np.array_equal(kept.transform.w_cw, tr.w_cw)

@@ -125,3 +125,26 @@ def test_an_inertial_event_in_red_noise_is_kept():
                 < 0.05 and r.start < 830 and r.n_cycles > 5]
     assert len(inertial) == 1
     assert inertial[0].statistic > inertial[0].threshold
+
+
+def test_calibration_is_stored_and_read_back_unchanged(tmp_path, monkeypatch):
+    # the stored calibration must be bit-for-bit the simulated one (common practice
+    # for a derived-data cache); a folder that cannot be written is not an error
+    monkeypatch.setenv("DRIFTLOOP_CACHE_DIR", str(tmp_path / "cache"))
+    config = sig._calibration_config(WaveletConfig())
+    cal = sig.calibrate(WaveletConfig())
+    path = sig._calibration_file(config)
+    assert path.parent == tmp_path / "cache"
+    sig._write_calibration(path, cal)
+    back = sig._read_calibration(path)
+    assert np.array_equal(back.band_edges, cal.band_edges) and back.n_records == cal.n_records
+    for a, b in zip(back.statistic + back.density, cal.statistic + cal.density, strict=True):
+        assert np.array_equal(a, b)
+    path.write_bytes(b"not a calibration")
+    assert sig._read_calibration(path) is None
+    blocked = tmp_path / "file"
+    blocked.write_text("x")
+    sig._write_calibration(blocked / "sub" / "cal.npz", cal)  # parent is a file: ignored
+    # another configuration gets another file
+    other = sig._calibration_file(sig._calibration_config(WaveletConfig(beta=6.0)))
+    assert other != path
