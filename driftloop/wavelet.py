@@ -101,9 +101,12 @@ unmasked interior, T_max = N dt / (min_cycles + k P / pi).
 
 **Speed.**  One forward FFT of z serves both senses (the spectrum of conj z
 is conj Z(-omega)); the wavelet table Psi(s_j omega_k) is computed once per
-FFT length and kept; both senses and all scales go to one batched 2-D
-inverse FFT (``scipy.fft``, ``workers``).  ``dtype = "float32"`` runs the FFTs
-in single precision.
+segment length and kept; the inverse FFTs (``scipy.fft``'s pocketfft,
+``workers``) run a few scales at a time, longest periods first, on a buffer
+that stays in the processor cache, and the table is multiplied in only up
+to the bin where it becomes zero (:func:`inverse_blocks`).
+:func:`driftloop.ridges.detect` uses each block while it is in the cache.
+``dtype = "float32"`` runs the FFTs in single precision.
 
 References
 ----------
