@@ -99,7 +99,7 @@ EVENT_COLUMNS: dict[str, tuple[str, str, str]] = {
     "inertial_period_h": ("double", "h", "local inertial period, pi/(Omega |sin lat|)"),
     "inertial_radius_km": ("double", "km", "inertial radius |V/f| for the loop speed"),
     "period_ratio": ("double", "1", "period_h / inertial_period_h"),
-    "radius_ratio": ("double", "1", "radius_km / inertial_radius_km"),
+    "radius_ratio": ("double", "1", "radius_fit_km / inertial_radius_km"),
     "semi_major_km": ("double", "km", "semi-major axis of the fitted ellipse"),
     "semi_minor_km": ("double", "km", "semi-minor axis of the fitted ellipse"),
     "orientation_deg": (
