@@ -70,6 +70,16 @@ def _add_input_options(parser: argparse.ArgumentParser) -> None:
         "--overwrite", action="store_true",
         help="write into a non-empty folder that is not a previous driftloop run",
     )
+    parser.add_argument(
+        "--workers", type=int, default=1, metavar="N",
+        help="run drifters in parallel in N processes on this machine with Dask "
+        "(default 1: serial, in this process)",
+    )
+    parser.add_argument(
+        "--scheduler", metavar="ADDRESS",
+        help="send the drifters to a running dask.distributed scheduler, e.g. "
+        "tcp://10.0.0.5:8786 (see docs/scaling.md)",
+    )
     parser.add_argument("--quiet", action="store_true", help="print nothing but errors")
     parser.add_argument("--debug", action="store_true", help="show tracebacks of errors")
 
@@ -194,31 +204,9 @@ def _parse_columns(text: str | None) -> dict[str, str]:
 
 
 def _expand_inputs(items: Sequence[str]) -> list[Path]:
-    from driftloop.io import reader_kind
+    from driftloop.io import expand_inputs
 
-    paths: list[Path] = []
-    for item in items:
-        path = Path(item)
-        if path.is_dir():
-            found = sorted(
-                p for p in path.iterdir() if p.is_file() and _readable_suffix(p, reader_kind)
-            )
-            if not found:
-                raise InputError(str(path), "folder holds no track files")
-            paths.extend(found)
-        elif not path.exists():
-            raise InputError(str(path), "no such file or folder")
-        else:
-            paths.append(path)
-    return paths
-
-
-def _readable_suffix(path: Path, reader_kind) -> bool:
-    try:
-        reader_kind(path)
-    except InputError:
-        return False
-    return True
+    return expand_inputs(items)
 
 
 def _make_config(args: argparse.Namespace):
@@ -240,7 +228,7 @@ def _make_config(args: argparse.Namespace):
     return config
 
 
-def _row_problems(fixes) -> tuple[list[InputError], int]:
+def _row_problems(fixes, count: int | None = None) -> tuple[list[InputError], int]:
     """Locate rows that did not parse or hold impossible coordinates."""
     bad = fixes[
         fixes["qc_reasons"].str.contains(
@@ -261,11 +249,11 @@ def _row_problems(fixes) -> tuple[list[InputError], int]:
         else:
             problems.append(InputError(row.source_file, f"longitude {row.lon} is outside "
                                        "[-180, 360]", row=row.source_row, column="lon"))
-    return problems, len(bad)
+    return problems, len(bad) if count is None else count
 
 
-def _report_row_problems(fixes, strict: bool, quiet: bool) -> None:
-    problems, count = _row_problems(fixes)
+def _report_row_problems(fixes, strict: bool, quiet: bool, count: int | None = None) -> None:
+    problems, count = _row_problems(fixes, count)
     if strict and problems:
         raise problems[0]
     if quiet:
@@ -329,8 +317,6 @@ def _run_skill(args: argparse.Namespace) -> int:
 def _run(args: argparse.Namespace) -> int:
     if args.command == "skill":
         return _run_skill(args)
-    from driftloop.pipeline import analyse
-
     if args.command == "export":
         return _run_export(args)
     if args.command == "report":
@@ -339,9 +325,18 @@ def _run(args: argparse.Namespace) -> int:
     paths = _expand_inputs(args.inputs)
     formats = _parse_formats(getattr(args, "formats", None))
     stages = "qc" if args.command == "qc" else "all"
-    result = analyse(paths, config, progress=not args.quiet, stages=stages)
-    _report_row_problems(result.fixes, args.strict, args.quiet)
-    written = result.write(args.out, overwrite=args.overwrite, protect=paths, formats=formats)
+    if args.workers < 1:
+        raise ConfigError(f"--workers: expected a whole number of at least 1, got {args.workers}")
+    from driftloop.streaming import run
+
+    def check(problems, count: int) -> None:
+        _report_row_problems(problems, args.strict, args.quiet, count=count)
+
+    result = run(paths, args.out, config, stages=stages, formats=formats,
+                 overwrite=args.overwrite, protect=paths, workers=args.workers,
+                 scheduler=args.scheduler, progress=not args.quiet, check=check,
+                 max_problems=MAX_ROW_WARNINGS)
+    written = result.files
     if stages == "all":
         from driftloop.report.html import build_report
 

@@ -73,7 +73,13 @@ __all__ = [
     "KINDS",
     "RELEASE_KEY",
     "decompose",
+    "drift_series",
     "drift_statistics",
+    "drifter_drift_statistics",
+    "grid_step_counts",
+    "grid_step_from_counts",
+    "inertial_decay_times",
+    "release_drift_statistics",
     "reconstruct_ridge",
 ]
 
@@ -305,15 +311,202 @@ def _dispersion_entry(table: pd.DataFrame, label: str) -> dict[str, Any] | None:
     return out
 
 
-def _grid_step_s(decomposed: pd.DataFrame) -> float:
-    steps = []
+def grid_step_counts(decomposed: pd.DataFrame) -> dict[int, int]:
+    """Count the time steps (ns) between grid points within each segment.
+
+    Parameters
+    ----------
+    decomposed : pandas.DataFrame
+        Output of :func:`decompose` (or a resampled track).
+
+    Returns
+    -------
+    dict of int to int
+        Step (ns) -> how many times it occurs; merged over drifters, these
+        counts give :func:`grid_step_from_counts` the release's grid step.
+    """
+    counts: dict[int, int] = {}
     for _, seg in decomposed.groupby(["drifter_id", "segment"], sort=False, observed=True):
         t = np.sort(_time_ns(seg["time"]))
         if t.size > 1:
-            steps.append(np.diff(t))
-    if not steps:
+            values, n = np.unique(np.diff(t), return_counts=True)
+            for value, k in zip(values.tolist(), n.tolist(), strict=True):
+                counts[value] = counts.get(value, 0) + k
+    return counts
+
+
+def grid_step_from_counts(counts: Mapping[int, int]) -> float:
+    """Median grid step (s) from step counts, as the median of all steps.
+
+    Parameters
+    ----------
+    counts : mapping of int to int
+        Step (ns) -> occurrences (:func:`grid_step_counts`).
+
+    Returns
+    -------
+    float
+        The median step in seconds (the same value as ``numpy.median`` of
+        every step), 3600 when there is no step.
+    """
+    total = sum(counts.values())
+    if total == 0:
         return 3600.0
-    return float(np.median(np.concatenate(steps))) / 1e9
+    values = sorted(counts)
+    cumulative = np.cumsum([counts[v] for v in values])
+
+    def nth(k: int) -> int:  # k-th smallest step, 0-based
+        return values[int(np.searchsorted(cumulative, k + 1))]
+
+    middle = [nth(total // 2)] if total % 2 else [nth(total // 2 - 1), nth(total // 2)]
+    return float(np.median(np.array(middle, dtype=np.int64))) / 1e9
+
+
+def _grid_step_s(decomposed: pd.DataFrame) -> float:
+    return grid_step_from_counts(grid_step_counts(decomposed))
+
+
+def _velocities(decomposed: pd.DataFrame) -> pd.DataFrame:
+    return pd.DataFrame({
+        "drifter_id": decomposed["drifter_id"].astype(str),
+        "time": decomposed["time"],
+        "u_m_s": decomposed["u_drift"].astype(float),
+        "v_m_s": decomposed["v_drift"].astype(float),
+    })
+
+
+def inertial_decay_times(events: pd.DataFrame | None) -> dict[str, list[float]]:
+    """Decay times (h) of the inertial events, per drifter.
+
+    Parameters
+    ----------
+    events : pandas.DataFrame or None
+        Loop events (``drifter_id``, ``kind``, ``decay_time_h``).
+
+    Returns
+    -------
+    dict of str to list of float
+        In event order.
+    """
+    decay: dict[str, list[float]] = {}
+    if events is not None and len(events):
+        inertial = events[events["kind"].astype(str) == "inertial"]
+        for drifter, d in zip(inertial["drifter_id"].astype(str),
+                              inertial["decay_time_h"].astype(float), strict=True):
+            decay.setdefault(drifter, []).append(float(d))
+    return decay
+
+
+def drifter_drift_statistics(rows: pd.DataFrame, drifter: str, decay_h: list[float],
+                             dt_s: float, dispersion_options: Mapping[str, Any] | None = None
+                             ) -> dict[str, Any]:
+    """Compute the :func:`drift_statistics` entry of one drifter.
+
+    Parameters
+    ----------
+    rows : pandas.DataFrame
+        The drifter's rows of :func:`decompose`.
+    drifter : str
+        Its id.
+    decay_h : list of float
+        Decay times of its inertial events (h).
+    dt_s : float
+        Grid step of the release (s).
+    dispersion_options : mapping, optional
+        As for :func:`drift_statistics`.
+
+    Returns
+    -------
+    dict
+        The entry (without ``drifters``), as :func:`drift_statistics` gives it.
+    """
+    options = {"n_boot": 200, **dict(dispersion_options or {})}
+    table = dispersion_by_drifter(_velocities(rows), dt_s, release=False, **options)
+    entry = _block(rows, decay_h)
+    entry["dispersion"] = _dispersion_entry(table, drifter)
+    return entry
+
+
+def drift_series(rows: pd.DataFrame, drifter: str, dt_s: float) -> tuple[np.ndarray, np.ndarray]:
+    """One drifter's drift velocity on its full grid (NaN in gaps), as the release pools it.
+
+    Parameters
+    ----------
+    rows : pandas.DataFrame
+        The drifter's rows of :func:`decompose`.
+    drifter : str
+        Its id.
+    dt_s : float
+        Grid step of the release (s).
+
+    Returns
+    -------
+    u, v : numpy.ndarray
+        East and north drift velocity (m/s).
+    """
+    from driftloop.dispersion import _regrid
+
+    return _regrid(_velocities(rows), dt_s, drifter)
+
+
+def release_drift_statistics(rows: pd.DataFrame, decay_h: list[float],
+                             series: list[tuple[np.ndarray, np.ndarray]], dt_s: float,
+                             n_drifters: int,
+                             dispersion_options: Mapping[str, Any] | None = None
+                             ) -> dict[str, Any]:
+    """Compute the release entry of :func:`drift_statistics`.
+
+    Parameters
+    ----------
+    rows : pandas.DataFrame
+        ``u_drift``, ``v_drift``, ``u_inertial``, ``v_inertial`` of every
+        drifter, in the order of :func:`decompose` over the release.
+    decay_h : list of float
+        Decay times of every inertial event (h).
+    series : list of (u, v)
+        :func:`drift_series` of every drifter, sorted by id.
+    dt_s : float
+        Grid step (s).
+    n_drifters : int
+        Drifters with a drift entry.
+    dispersion_options : mapping, optional
+        As for :func:`drift_statistics`.
+
+    Returns
+    -------
+    dict
+        The release entry.
+    """
+    from driftloop.dispersion import DISPERSION_COLUMNS, single_particle_statistics
+
+    options = {"n_boot": 200, **dict(dispersion_options or {})}
+    records = []
+    if series:
+        us = [s[0] for s in series]
+        vs = [s[1] for s in series]
+        stats = single_particle_statistics(us, vs, dt_s, **options)
+        duration = float(sum(a.size for a in us) * dt_s)
+        for name, st in stats.items():
+            records.append({
+                "drifter_id": RELEASE_KEY, "component": name, "samples": st.samples,
+                "duration_s": duration, "variance_m2_s2": st.variance_m2_s2,
+                "variance_low_m2_s2": st.variance_ci_m2_s2[0],
+                "variance_high_m2_s2": st.variance_ci_m2_s2[1],
+                "integral_time_s": st.integral_time_s,
+                "integral_time_low_s": st.integral_time_ci_s[0],
+                "integral_time_high_s": st.integral_time_ci_s[1],
+                "diffusivity_m2_s": st.diffusivity_m2_s,
+                "diffusivity_low_m2_s": st.diffusivity_ci_m2_s[0],
+                "diffusivity_high_m2_s": st.diffusivity_ci_m2_s[1],
+                "method": st.method, "limit_s": st.limit_s, "limit_found": st.limit_found,
+                "dof_effective": st.dof_effective, "blocks": st.blocks, "block_s": st.block_s,
+            })
+    table = pd.DataFrame(records, columns=list(DISPERSION_COLUMNS))
+    release = _block(rows, decay_h)
+    release["drifters"] = n_drifters
+    release["dispersion"] = _dispersion_entry(table, RELEASE_KEY)
+    release["grid_step_s"] = dt_s
+    return release
 
 
 def drift_statistics(decomposed: pd.DataFrame, events: pd.DataFrame | None = None, *,
@@ -364,33 +557,19 @@ def drift_statistics(decomposed: pd.DataFrame, events: pd.DataFrame | None = Non
             the T_L integration, ``limit_found``, ``dof_effective``; None
             when the drifter is too short.
     """
-    options = {"n_boot": 200, **dict(dispersion_options or {})}
-    decay: dict[str, list[float]] = {}
-    if events is not None and len(events):
-        inertial = events[events["kind"].astype(str) == "inertial"]
-        for drifter, d in zip(inertial["drifter_id"].astype(str),
-                              inertial["decay_time_h"].astype(float), strict=True):
-            decay.setdefault(drifter, []).append(float(d))
+    decay = inertial_decay_times(events)
     result: dict[str, dict[str, Any]] = {}
     if decomposed.empty:
         return result
     dt_s = _grid_step_s(decomposed)
-    velocities = pd.DataFrame({
-        "drifter_id": decomposed["drifter_id"].astype(str),
-        "time": decomposed["time"],
-        "u_m_s": decomposed["u_drift"].astype(float),
-        "v_m_s": decomposed["v_drift"].astype(float),
-    })
-    table = dispersion_by_drifter(velocities, dt_s, release=True, release_label=RELEASE_KEY,
-                                  **options)
     ids = decomposed["drifter_id"].astype(str)
+    series = []
     for drifter in sorted(ids.unique()):
-        entry = _block(decomposed[ids == drifter], decay.get(drifter, []))
-        entry["dispersion"] = _dispersion_entry(table, drifter)
-        result[drifter] = entry
-    release = _block(decomposed, [d for ds in decay.values() for d in ds])
-    release["drifters"] = len(result)
-    release["dispersion"] = _dispersion_entry(table, RELEASE_KEY)
-    release["grid_step_s"] = dt_s
-    result[RELEASE_KEY] = release
+        rows = decomposed[ids == drifter]
+        result[drifter] = drifter_drift_statistics(rows, drifter, decay.get(drifter, []), dt_s,
+                                                   dispersion_options)
+        series.append(drift_series(rows, drifter, dt_s))
+    result[RELEASE_KEY] = release_drift_statistics(
+        decomposed, [d for ds in decay.values() for d in ds], series, dt_s, len(result),
+        dispersion_options)
     return result

@@ -25,7 +25,7 @@ from scipy import signal
 
 from driftloop.physics import coriolis_parameter
 
-__all__ = ["RotarySpectra", "inertial_peak_check", "rotary_spectra"]
+__all__ = ["RotarySpectra", "SpectraAccumulator", "inertial_peak_check", "rotary_spectra"]
 
 #: Seconds per day, to express frequencies in cycles per day.
 _DAY_S = 86400.0
@@ -61,6 +61,120 @@ def _segment_spectra(z: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray
     return freq, psd, n_windows
 
 
+class SpectraAccumulator:
+    """Rotary spectra built one drifter at a time (drifters in sorted order).
+
+    :func:`rotary_spectra` feeds every drifter of a table to this class; a
+    streaming run feeds them one by one and gets the same table, since the
+    release spectrum is the same window-weighted sum taken in the same order.
+
+    Parameters
+    ----------
+    window_days : float
+        Welch window length (days).
+    """
+
+    def __init__(self, window_days: float = 10.0) -> None:
+        self.window_days = window_days
+        self.rows: list[pd.DataFrame] = []
+        self._psd: np.ndarray | None = None
+        self._windows = 0
+        self._freq: np.ndarray | None = None
+
+    def drifter_rows(self, drifter: str, group: pd.DataFrame) -> pd.DataFrame | None:
+        """Return the spectrum rows of one drifter (None if no segment is long enough).
+
+        Parameters
+        ----------
+        drifter : str
+            Drifter id.
+        group : pandas.DataFrame
+            Its resampled track (``segment``, ``time``, ``u``, ``v``).
+
+        Returns
+        -------
+        pandas.DataFrame or None
+            The drifter's rows of the spectra table.
+        """
+        window_days = self.window_days
+        acc, count = None, 0
+        for _, seg in group.groupby("segment", sort=True):
+            t = seg["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+            if t.size < 4:
+                continue
+            dt = float(np.median(np.diff(t)))
+            nperseg = int(round(window_days * _DAY_S / dt))
+            if t.size < nperseg or nperseg < 8:
+                continue
+            z = seg["u"].to_numpy(dtype=float) + 1j * seg["v"].to_numpy(dtype=float)
+            freq, psd, n = _segment_spectra(z, 1.0 / dt, nperseg)
+            acc = psd * n if acc is None else acc + psd * n
+            count += n
+        if acc is None:
+            return None
+        psd = acc / count
+        pos = freq > 0
+        order = np.argsort(freq[pos])
+        f_pos = freq[pos][order]
+        neg_index = {round(float(-f), 12): i for i, f in enumerate(freq) if f < 0}
+        cw = np.array([psd[neg_index[round(float(f), 12)]] for f in f_pos])
+        ccw = psd[pos][order]
+        scale = 1.0 / _DAY_S  # PSD per Hz -> per cycle per day
+        return pd.DataFrame({
+            "drifter_id": str(drifter),
+            "frequency_cpd": f_pos * _DAY_S,
+            "psd_anticlockwise": ccw * scale,
+            "psd_clockwise": cw * scale,
+            "windows": count,
+            "_f": f_pos,
+            "_ccw": ccw,
+            "_cw": cw,
+        })
+
+    def add_rows(self, rows: pd.DataFrame | None) -> None:
+        """Add the rows of one drifter (from :meth:`drifter_rows`) to the table.
+
+        Parameters
+        ----------
+        rows : pandas.DataFrame or None
+            The drifter's spectrum rows; None adds nothing.
+        """
+        if rows is None:
+            return
+        # the release sums the unscaled values, which the rows carry in the
+        # private columns _f, _ccw and _cw (left out of the table)
+        self.rows.append(rows)
+        count = int(rows["windows"].iloc[0])
+        both = np.stack([rows["_ccw"].to_numpy(), rows["_cw"].to_numpy()])
+        self._psd = both * count if self._psd is None else self._psd + both * count
+        self._windows += count
+        self._freq = rows["_f"].to_numpy()
+
+    def table(self) -> RotarySpectra:
+        """Return the spectra table: every drifter added, then the release.
+
+        Returns
+        -------
+        RotarySpectra
+            The table and the window length.
+        """
+        rows = [r.loc[:, list(_COLUMNS)] for r in self.rows]
+        if rows and self._freq is not None:
+            both = self._psd / self._windows
+            rows.append(pd.DataFrame({
+                "drifter_id": RELEASE_ID,
+                "frequency_cpd": self._freq * _DAY_S,
+                "psd_anticlockwise": both[0] / _DAY_S,
+                "psd_clockwise": both[1] / _DAY_S,
+                "windows": int(self._windows),
+            }))
+        table = pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=_COLUMNS)
+        return RotarySpectra(table.loc[:, list(_COLUMNS)], self.window_days)
+
+
+_COLUMNS = ("drifter_id", "frequency_cpd", "psd_anticlockwise", "psd_clockwise", "windows")
+
+
 def rotary_spectra(track: pd.DataFrame, window_days: float = 10.0) -> RotarySpectra:
     """Welch rotary spectra of the resampled velocities, per drifter and release.
 
@@ -78,56 +192,10 @@ def rotary_spectra(track: pd.DataFrame, window_days: float = 10.0) -> RotarySpec
     RotarySpectra
         The spectra table.
     """
-    rows = []
-    total: dict[str, object] = {"psd": None, "windows": 0}
-    freq_pos = None
+    acc = SpectraAccumulator(window_days)
     for drifter, group in track.groupby("drifter_id", sort=True, observed=True):
-        acc, count = None, 0
-        for _, seg in group.groupby("segment", sort=True):
-            t = seg["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
-            if t.size < 4:
-                continue
-            dt = float(np.median(np.diff(t)))
-            nperseg = int(round(window_days * _DAY_S / dt))
-            if t.size < nperseg or nperseg < 8:
-                continue
-            z = seg["u"].to_numpy(dtype=float) + 1j * seg["v"].to_numpy(dtype=float)
-            freq, psd, n = _segment_spectra(z, 1.0 / dt, nperseg)
-            acc = psd * n if acc is None else acc + psd * n
-            count += n
-        if acc is None:
-            continue
-        psd = acc / count
-        pos = freq > 0
-        order = np.argsort(freq[pos])
-        f_pos = freq[pos][order]
-        neg_index = {round(float(-f), 12): i for i, f in enumerate(freq) if f < 0}
-        cw = np.array([psd[neg_index[round(float(f), 12)]] for f in f_pos])
-        ccw = psd[pos][order]
-        freq_pos = f_pos
-        scale = 1.0 / _DAY_S  # PSD per Hz -> per cycle per day
-        rows.append(pd.DataFrame({
-            "drifter_id": str(drifter),
-            "frequency_cpd": f_pos * _DAY_S,
-            "psd_anticlockwise": ccw * scale,
-            "psd_clockwise": cw * scale,
-            "windows": count,
-        }))
-        total["psd"] = (np.stack([ccw, cw]) * count if total["psd"] is None
-                        else total["psd"] + np.stack([ccw, cw]) * count)
-        total["windows"] = int(total["windows"]) + count
-    if rows and freq_pos is not None:
-        both = total["psd"] / total["windows"]
-        rows.append(pd.DataFrame({
-            "drifter_id": RELEASE_ID,
-            "frequency_cpd": freq_pos * _DAY_S,
-            "psd_anticlockwise": both[0] / _DAY_S,
-            "psd_clockwise": both[1] / _DAY_S,
-            "windows": int(total["windows"]),
-        }))
-    columns = ["drifter_id", "frequency_cpd", "psd_anticlockwise", "psd_clockwise", "windows"]
-    table = pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=columns)
-    return RotarySpectra(table.loc[:, columns], window_days)
+        acc.add_rows(acc.drifter_rows(str(drifter), group))
+    return acc.table()
 
 
 def inertial_peak_check(

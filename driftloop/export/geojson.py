@@ -51,6 +51,9 @@ if TYPE_CHECKING:
 
 __all__ = [
     "COORDINATE_DECIMALS",
+    "FULL_CIRCLE_GAP_DEG",
+    "BboxAccumulator",
+    "GeoJSONWriter",
     "conform_geometries",
     "conform_geometry",
     "geojson_bbox",
@@ -224,22 +227,118 @@ def _round_geometries(geoms: np.ndarray) -> np.ndarray:
     return out
 
 
+#: An extent whose widest uncovered arc of longitude is narrower than this
+#: (degrees) is written as the whole circle, -180 .. 180.
+FULL_CIRCLE_GAP_DEG = 1e-3
+
+
 def _lon_extent(west: np.ndarray, east: np.ndarray) -> tuple[float, float]:
     """Smallest longitude range covering closed intervals on the circle.
 
     ``west[k] <= east[k]`` in [-180, 180]; -180 and 180 are the same
     meridian.  Returns ``(west, east)``, with ``west > east`` when the range
-    spans the antimeridian.
+    spans the antimeridian, and ``(-180, 180)`` when no uncovered arc is as
+    wide as :data:`FULL_CIRCLE_GAP_DEG` (which also lets a streaming writer
+    find the same range from per-bin extremes, see :class:`BboxAccumulator`).
     """
     order = np.argsort(west, kind="stable")
     west, east = west[order], east[order]
     reach = np.maximum.accumulate(east)  # eastern end covered so far
     gaps = west[1:] - reach[:-1]  # uncovered arc before interval k + 1 (if > 0)
     wrap_gap = (west[0] + 180.0) + (180.0 - reach[-1])
+    widest = max(wrap_gap, float(gaps.max())) if gaps.size else wrap_gap
+    if widest < FULL_CIRCLE_GAP_DEG:
+        return -180.0, 180.0
     if gaps.size == 0 or wrap_gap >= gaps.max():
         return float(west[0]), float(reach[-1])
     k = int(np.argmax(gaps))
     return float(west[k + 1]), float(reach[k])
+
+
+class BboxAccumulator:
+    """The :func:`geojson_bbox` of geometries added a chunk at a time, in fixed memory.
+
+    Each added box goes to one of :data:`BINS` bins of longitude by its
+    western edge; a bin keeps its smallest western and largest eastern edge.
+    Every uncovered arc between bins is then exact, and arcs hidden inside a
+    bin are narrower than a bin (0.0007 degrees), below
+    :data:`FULL_CIRCLE_GAP_DEG`, so the result equals :func:`geojson_bbox`
+    of all the geometries at once.
+    """
+
+    #: Number of longitude bins.
+    BINS = 1 << 19
+
+    #: Boxes kept as they are before the bins are set up.
+    KEEP = 100_000
+
+    def __init__(self) -> None:
+        self._kept: list[np.ndarray] = []
+        self._n_kept = 0
+        self._west: np.ndarray | None = None
+        self._east: np.ndarray | None = None
+        self._south = np.inf
+        self._north = -np.inf
+        self._any = False
+
+    def add(self, geoms: Iterable[BaseGeometry | None]) -> None:
+        """Add conformed, rounded geometries (``None`` entries are skipped).
+
+        Parameters
+        ----------
+        geoms : iterable of shapely geometry or None
+            As :func:`geojson_bbox` takes them.
+        """
+        box = _boxes(geoms)
+        if box is None:
+            return
+        self._any = True
+        self._south = min(self._south, float(box[:, 1].min()))
+        self._north = max(self._north, float(box[:, 3].max()))
+        if self._west is None:
+            self._kept.append(box)
+            self._n_kept += len(box)
+            if self._n_kept <= self.KEEP:
+                return
+            box = np.vstack(self._kept)
+            self._kept = []
+            self._west = np.full(self.BINS, np.inf)
+            self._east = np.full(self.BINS, -np.inf)
+        k = np.clip(((box[:, 0] + 180.0) * (self.BINS / 360.0)).astype(np.int64), 0,
+                    self.BINS - 1)
+        np.minimum.at(self._west, k, box[:, 0])
+        np.maximum.at(self._east, k, box[:, 2])
+
+    def bbox(self) -> list[float] | None:
+        """Return ``[west, south, east, north]``, or None when nothing was added.
+
+        Returns
+        -------
+        list of float or None
+            As :func:`geojson_bbox`.
+        """
+        if not self._any:
+            return None
+        if self._west is None:
+            box = np.vstack(self._kept)
+            west, east = _lon_extent(box[:, 0], box[:, 2])
+        else:
+            used = np.isfinite(self._west)
+            west, east = _lon_extent(self._west[used], self._east[used])
+        return [west, self._south, east, self._north]
+
+
+def _boxes(geoms: Iterable[BaseGeometry | None]) -> np.ndarray | None:
+    """``[west, south, east, north]`` of every point and part, or None if there is none."""
+    array = _object_array(geoms)
+    array = array[~shapely.is_missing(array)]
+    array = array[~shapely.is_empty(array)]
+    if array.size == 0:
+        return None
+    points = shapely.get_type_id(array) == 0
+    xy = shapely.get_coordinates(array[points])  # a point is its own box
+    parts = shapely.get_parts(array[~points])
+    return np.vstack([np.column_stack([xy, xy]), shapely.bounds(parts).reshape(-1, 4)])
 
 
 def geojson_bbox(geoms: Iterable[BaseGeometry | None]) -> list[float] | None:
@@ -266,15 +365,9 @@ def geojson_bbox(geoms: Iterable[BaseGeometry | None]) -> list[float] | None:
     >>> geojson_bbox([cut])
     [179.5, 10.0, -179.5, 11.0]
     """
-    array = _object_array(geoms)
-    array = array[~shapely.is_missing(array)]
-    array = array[~shapely.is_empty(array)]
-    if array.size == 0:
+    box = _boxes(geoms)
+    if box is None:
         return None
-    points = shapely.get_type_id(array) == 0
-    xy = shapely.get_coordinates(array[points])  # a point is its own box
-    parts = shapely.get_parts(array[~points])
-    box = np.vstack([np.column_stack([xy, xy]), shapely.bounds(parts).reshape(-1, 4)])
     west, east = _lon_extent(box[:, 0], box[:, 2])
     return [west, float(box[:, 1].min()), east, float(box[:, 3].max())]
 
@@ -484,24 +577,38 @@ def geojson_text(
     ValueError
         If the layer has a CRS other than WGS 84 longitude/latitude.
     """
+    lines, geoms = _feature_lines(layer)
+    features = "\"features\":[\n" + ",\n".join(lines) + "\n]" if lines else '"features":[]'
+    return _head(name, provenance, geojson_bbox(geoms)) + features + "}\n"
+
+
+def _check_crs(layer: gpd.GeoDataFrame) -> None:
     crs = layer.crs
     if crs is not None and crs.to_epsg() != 4326 and not crs.equals("OGC:CRS84"):
         raise ValueError(f"RFC 7946 GeoJSON is WGS 84 longitude/latitude only, not {crs.name}")
-    geometry_name = layer.geometry.name
-    columns = [c for c in layer.columns if c != geometry_name]
-    values = [property_values(layer[c]) for c in columns]
-    geoms = _round_geometries(conform_geometries(layer.geometry))
-    texts = _geometry_texts(geoms)
 
+
+def _head(name: str | None, provenance: Mapping[str, Any] | None,
+          box: list[float] | None) -> str:
+    """Return the collection's members before ``"features"``, with the brace and comma."""
     head: list[str] = ['"type":"FeatureCollection"']
     if name is not None:
         head.append(f'"name":{_dumps(name)}')
     if provenance is not None:
         head.append(f'"driftloop":{_dumps(plain_data(provenance))}')
-    box = geojson_bbox(geoms)
     if box is not None:
         head.append(f'"bbox":{_bbox_json(box)}')
+    return "{" + ",".join(head) + ","
 
+
+def _feature_lines(layer: gpd.GeoDataFrame) -> tuple[list[str], np.ndarray]:
+    """One text line per feature, and the conformed, rounded geometries."""
+    _check_crs(layer)
+    geometry_name = layer.geometry.name
+    columns = [c for c in layer.columns if c != geometry_name]
+    values = [property_values(layer[c]) for c in columns]
+    geoms = _round_geometries(conform_geometries(layer.geometry))
+    texts = _geometry_texts(geoms)
     members = [_member_texts(str(c), v) for c, v in zip(columns, values, strict=True)]
     if members:
         props = ["{" + ",".join(row) + "}" for row in zip(*members, strict=True)]
@@ -518,9 +625,84 @@ def geojson_text(
         box = _bbox_json(geojson_bbox([geoms[k]]))
         lines[k] = (f'{{"type":"Feature","bbox":{box},"properties":{props[k]},'
                     f'"geometry":{texts[k]}}}')
-    body = ",\n".join(lines)
-    features = f'"features":[\n{body}\n]' if lines else '"features":[]'
-    return "{" + ",".join(head) + "," + features + "}\n"
+    return lines, geoms
+
+
+class GeoJSONWriter:
+    """Write a GeoJSON layer a chunk of features at a time.
+
+    The bytes are those of :func:`write_geojson` of the whole layer.
+
+    Feature lines go to an anonymous temporary file as they come, and the
+    collection's bounding box is accumulated (:class:`BboxAccumulator`); at
+    :meth:`commit` the head (which holds the box) and the features are
+    written to the usual temporary file and renamed over the target.
+
+    Parameters
+    ----------
+    path : str or Path
+        Destination file.
+    name : str, optional
+        Layer name (foreign member ``"name"``).
+    provenance : mapping, optional
+        Run provenance (foreign member ``"driftloop"``).
+    """
+
+    def __init__(self, path: str | Path, *, name: str | None = None,
+                 provenance: Mapping[str, Any] | None = None) -> None:
+        import tempfile
+
+        self.path = Path(path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        self.name = name
+        self.provenance = provenance
+        self._body = tempfile.TemporaryFile(dir=self.path.parent)
+        self._box = BboxAccumulator()
+        self.features = 0
+
+    def append(self, layer: gpd.GeoDataFrame) -> None:
+        """Add the features of a layer chunk, in order.
+
+        Parameters
+        ----------
+        layer : geopandas.GeoDataFrame
+            As :func:`geojson_text` takes it; every chunk has the same columns.
+        """
+        if len(layer) == 0:
+            _check_crs(layer)
+            return
+        lines, geoms = _feature_lines(layer)
+        text = ",\n".join(lines)
+        self._body.write((",\n" + text if self.features else text).encode("utf-8"))
+        self.features += len(lines)
+        self._box.add(geoms)
+
+    def commit(self) -> Path:
+        """Write the file atomically and return its path.
+
+        Returns
+        -------
+        Path
+            The file written.
+        """
+        import shutil
+
+        head = _head(self.name, self.provenance, self._box.bbox())
+        with atomic_open(self.path, "wb") as handle:
+            handle.write(head.encode("utf-8"))
+            if self.features:
+                handle.write(b'"features":[\n')
+                self._body.seek(0)
+                shutil.copyfileobj(self._body, handle, 1 << 20)
+                handle.write(b"\n]}\n")
+            else:
+                handle.write(b'"features":[]}\n')
+        self._body.close()
+        return self.path
+
+    def abort(self) -> None:
+        """Drop what was written."""
+        self._body.close()
 
 
 def write_geojson(

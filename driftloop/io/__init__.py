@@ -25,7 +25,15 @@ from driftloop.config import ReadConfig
 from driftloop.errors import InputError
 from driftloop.io.schema import FIX_COLUMNS, empty_fixes, make_fixes, wrap_lon
 
-__all__ = ["FIX_COLUMNS", "empty_fixes", "make_fixes", "read_file", "read_tracks", "wrap_lon"]
+__all__ = [
+    "FIX_COLUMNS",
+    "empty_fixes",
+    "expand_inputs",
+    "make_fixes",
+    "read_file",
+    "read_tracks",
+    "wrap_lon",
+]
 
 _SUFFIXES = {
     ".csv": "delimited",
@@ -65,6 +73,62 @@ def reader_kind(path: str | Path) -> str:
         raise InputError(str(path), f"unknown file type {suffix or '(no suffix)'!r}; "
                          f"driftloop reads {known}")
     return _SUFFIXES[suffix]
+
+
+def _readable(path: Path) -> bool:
+    return path.is_file() and not path.name.startswith((".", "_")) \
+        and path.suffix.lower() in _SUFFIXES
+
+
+def _folder_files(folder: Path) -> list[Path]:
+    """Track files of a folder and of its ``KEY=VALUE`` partition folders."""
+    found = []
+    for entry in folder.iterdir():
+        if entry.is_dir() and "=" in entry.name and not entry.name.startswith((".", "_")):
+            found.extend(_folder_files(entry))
+        elif _readable(entry):
+            found.append(entry)
+    return found
+
+
+def expand_inputs(items: Iterable[str | Path]) -> list[Path]:
+    """Turn input names into the track files to read, sorted by path.
+
+    A folder stands for the track files in it (by suffix, names starting
+    with ``.`` or ``_`` left out) and in its ``KEY=VALUE`` subfolders, as in
+    a Hive-partitioned Parquet dataset (the partition values become columns,
+    see :func:`driftloop.io.parquet.hive_partitions`); other subfolders are
+    not read.
+
+    Parameters
+    ----------
+    items : iterable of str or Path
+        Files and folders.
+
+    Returns
+    -------
+    list of Path
+        The files, sorted by path (a file named twice is read twice, as
+        named).
+
+    Raises
+    ------
+    InputError
+        If a name does not exist or a folder holds no track file.
+    """
+    paths: list[Path] = []
+    for item in items:
+        path = Path(item)
+        if path.is_dir():
+            found = _folder_files(path)
+            if not found:
+                raise InputError(str(path), "folder holds no track files")
+            paths.extend(found)
+        elif not path.exists():
+            raise InputError(str(path), "no such file or folder")
+        else:
+            paths.append(path)
+    return sorted(paths, key=str)
 
 
 def read_file(path: str | Path, config: ReadConfig | None = None) -> pd.DataFrame:

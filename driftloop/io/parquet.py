@@ -93,10 +93,12 @@ def read_parquet(path: str | Path, config: ReadConfig) -> pd.DataFrame:
     file = str(path)
     parquet = _open(path, file)
     names = parquet.schema_arrow.names
+    partitions = {k: v for k, v in hive_partitions(path).items() if k not in names}
+    names = [*names, *partitions]
     roles = infer_columns(names, config, file)
     if parquet.metadata.num_rows == 0:
         raise InputError(file, "the file has no rows")
-    columns = _read_columns(parquet, names, roles, file)
+    columns = _read_columns(parquet, names, roles, file, partitions)
     n = len(columns["time"])
     source_row = np.arange(1, n + 1, dtype=np.int64)
 
@@ -155,11 +157,54 @@ def _open(path: str | Path, file: str) -> pq.ParquetFile:
         raise InputError(file, f"not a Parquet file that can be read: {exc}") from exc
 
 
+def hive_partitions(path: str | Path) -> dict[str, str]:
+    """Partition columns given by the folders of a file in a partitioned dataset.
+
+    A folder named ``KEY=VALUE`` (Hive-style partitioning, as written by
+    Spark, Dask or :func:`pyarrow.dataset.write_dataset`) gives every row of
+    the files below it the text column ``KEY`` with value ``VALUE``
+    (percent-decoded); a column of the file itself takes precedence.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file.
+
+    Returns
+    -------
+    dict of str to str
+        Partition columns, outermost folder first.
+
+    Examples
+    --------
+    >>> hive_partitions("release/drifter_id=B2/year=2024/part-0.parquet")
+    {'drifter_id': 'B2', 'year': '2024'}
+    """
+    from urllib.parse import unquote
+
+    out: dict[str, str] = {}
+    for part in Path(path).parent.parts:
+        key, sep, value = part.partition("=")
+        if sep and key and "=" not in value:
+            out[unquote(key)] = unquote(value)
+    return out
+
+
 def _read_columns(
-    parquet: pq.ParquetFile, names: list[str], roles: ColumnRoles, file: str
+    parquet: pq.ParquetFile, names: list[str], roles: ColumnRoles, file: str,
+    partitions: dict[str, str] | None = None,
 ) -> dict[str, pa.Array]:
     """Read only the role columns (all columns if their names are not unique)."""
-    wanted = sorted(set(roles.index.values()))
+    partitions = partitions or {}
+    n_file = len(names) - len(partitions)
+    extra = {n_file + k: value for k, value in enumerate(partitions.values())}
+    columns = {}
+    for role, i in list(roles.index.items()):
+        if i in extra:
+            columns[role] = pa.array([extra[i]] * parquet.metadata.num_rows, pa.large_string())
+    roles_file = {role: i for role, i in roles.index.items() if i not in extra}
+    names = names[:n_file]
+    wanted = sorted(set(roles_file.values()))
     unique = all(names.count(names[i]) == 1 for i in wanted)
     try:
         if unique:
@@ -170,8 +215,7 @@ def _read_columns(
             position = {i: i for i in wanted}
     except (pa.ArrowException, OSError, ValueError) as exc:
         raise InputError(file, f"cannot read the Parquet data: {exc}") from exc
-    columns = {}
-    for role, i in roles.index.items():
+    for role, i in roles_file.items():
         column = table.column(position[i]).combine_chunks()
         if pa.types.is_dictionary(column.type):
             column = column.dictionary_decode()

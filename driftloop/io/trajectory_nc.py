@@ -51,7 +51,13 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-__all__ = ["TRAJECTORY_COLUMNS", "write_trajectories_nc"]
+__all__ = [
+    "OBS_DTYPES",
+    "TRAJECTORY_COLUMNS",
+    "obs_columns",
+    "write_trajectories_nc",
+    "write_trajectories_nc_columns",
+]
 
 #: Columns the table must have.
 TRAJECTORY_COLUMNS = (
@@ -112,12 +118,22 @@ def _dataset(table: pd.DataFrame, attrs: dict) -> xr.Dataset:
     counts = np.diff(np.r_[first, ids.size]).astype(np.int32)
     traj_drifter = ids[first]
     traj_segment = segment[first].astype(np.int32)
-    traj_id = np.array([f"{d}/{s}" for d, s in zip(traj_drifter, traj_segment, strict=True)],
-                       dtype=object)
 
     def obs(name: str, dtype) -> np.ndarray:
         return table[name].to_numpy(dtype=dtype)[order]
 
+    columns = {"time": time_ns / _NS, "lat": obs("lat", float), "lon": obs("lon", float)}
+    for name in ("u", "v", "sigma_m", "gap_h"):
+        columns[name] = obs(name, float)
+    columns["in_gap"] = obs("in_gap", bool).astype(np.int8)
+    return _assemble(traj_drifter, traj_segment, counts, columns, attrs)
+
+
+def _assemble(traj_drifter: np.ndarray, traj_segment: np.ndarray, counts: np.ndarray,
+              columns: dict[str, np.ndarray], attrs: dict) -> xr.Dataset:
+    """Build the dataset from per-trajectory arrays and the obs columns in file order."""
+    traj_id = np.array([f"{d}/{s}" for d, s in zip(traj_drifter, traj_segment, strict=True)],
+                       dtype=object)
     data = {
         "trajectory_id": (("trajectory",), traj_id, {
             "cf_role": "trajectory_id", "long_name": "drifter and segment, as drifter/segment"}),
@@ -126,14 +142,14 @@ def _dataset(table: pd.DataFrame, attrs: dict) -> xr.Dataset:
             "long_name": "segment number within the drifter (split at long gaps)"}),
         "rowSize": (("trajectory",), counts, {
             "long_name": "number of observations in the trajectory", "sample_dimension": "obs"}),
-        "time": (("obs",), time_ns / _NS, _OBS_ATTRS["time"]),
-        "lat": (("obs",), obs("lat", float), _OBS_ATTRS["lat"]),
-        "lon": (("obs",), obs("lon", float), _OBS_ATTRS["lon"]),
+        "time": (("obs",), columns["time"], _OBS_ATTRS["time"]),
+        "lat": (("obs",), columns["lat"], _OBS_ATTRS["lat"]),
+        "lon": (("obs",), columns["lon"], _OBS_ATTRS["lon"]),
     }
     for name in ("u", "v", "sigma_m", "gap_h"):
-        data[name] = (("obs",), obs(name, float),
+        data[name] = (("obs",), columns[name],
                       {**_OBS_ATTRS[name], "coordinates": "time lat lon"})
-    data["in_gap"] = (("obs",), obs("in_gap", bool).astype(np.int8),
+    data["in_gap"] = (("obs",), columns["in_gap"],
                       {**_OBS_ATTRS["in_gap"], "coordinates": "time lat lon"})
     ds = xr.Dataset({name: xr.Variable(*spec) for name, spec in data.items()})
     ds.attrs = {"Conventions": "CF-1.11", "featureType": "trajectory",
@@ -175,8 +191,65 @@ def write_trajectories_nc(path: str | Path, table: pd.DataFrame, attrs: dict) ->
     docstring.  If writing fails, no file (and no temporary file) is left
     at ``path``.
     """
-    path = Path(path)
-    ds = _dataset(table, attrs)
+    return _write(Path(path), _dataset(table, attrs))
+
+
+#: Obs columns of the file, in order, with their dtypes.
+OBS_DTYPES = {"time": np.float64, "lat": np.float64, "lon": np.float64, "u": np.float64,
+              "v": np.float64, "sigma_m": np.float64, "gap_h": np.float64, "in_gap": np.int8}
+
+
+def obs_columns(table: pd.DataFrame) -> dict[str, np.ndarray]:
+    """Return the obs columns of one drifter's resampled rows, as the file stores them.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Resampled rows of one drifter, sorted by segment and time.
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        :data:`OBS_DTYPES` columns (time in seconds since 1970).
+    """
+    time_ns = pd.DatetimeIndex(pd.to_datetime(table["time"], utc=True)).as_unit("ns").asi8
+    out = {"time": time_ns / _NS}
+    for name in ("lat", "lon", "u", "v", "sigma_m", "gap_h"):
+        out[name] = table[name].to_numpy(dtype=float)
+    out["in_gap"] = table["in_gap"].to_numpy(dtype=bool).astype(np.int8)
+    return out
+
+
+def write_trajectories_nc_columns(path: str | Path, traj_drifter: np.ndarray,
+                                  traj_segment: np.ndarray, counts: np.ndarray,
+                                  columns: dict[str, np.ndarray], attrs: dict) -> Path:
+    """Write the file from arrays already in file order (streaming runs).
+
+    Parameters
+    ----------
+    path : str or Path
+        The NetCDF-4 file to write.
+    traj_drifter, traj_segment, counts : numpy.ndarray
+        Drifter id, segment and number of observations of each trajectory,
+        sorted by drifter and segment.
+    columns : dict of str to numpy.ndarray
+        The :data:`OBS_DTYPES` columns in file order (memory-mapped arrays
+        are fine: each is written in one piece).
+    attrs : dict
+        Global attributes, as for :func:`write_trajectories_nc`.
+
+    Returns
+    -------
+    Path
+        The file written; the same bytes as :func:`write_trajectories_nc` of
+        the same rows.
+    """
+    ds = _assemble(np.asarray(traj_drifter, dtype=object), np.asarray(traj_segment, np.int32),
+                   np.asarray(counts, np.int32), columns, attrs)
+    return _write(Path(path), ds)
+
+
+def _write(path: Path, ds: xr.Dataset) -> Path:
     encoding = {name: {"_FillValue": None} for name in ds.variables}
     encoding["time"]["dtype"] = "float64"
     path.parent.mkdir(parents=True, exist_ok=True)

@@ -21,6 +21,8 @@ import pandas as pd
 
 __all__ = [
     "CSV_CHUNK_ROWS",
+    "AtomicFile",
+    "CsvAppender",
     "PART_SUFFIX",
     "atomic_open",
     "format_time",
@@ -140,6 +142,61 @@ def atomic_open(path: str | Path, mode: str = "w", **kwargs: Any) -> Iterator[IO
     _sync_folder(path.parent)
 
 
+class AtomicFile:
+    """A temporary file beside its target, renamed over it by :meth:`commit`.
+
+    The non-context-manager form of :func:`atomic_open`, for outputs written
+    piece by piece over a whole run and renamed at its end in a chosen
+    order: same temporary name (``.NAME.PID.RANDOM.part``), permissions,
+    flush and folder sync.
+
+    Parameters
+    ----------
+    path : str or Path
+        The final file.
+    mode : str
+        ``"w"`` (text, UTF-8, Unix line ends) or ``"wb"``.
+    """
+
+    def __init__(self, path: str | Path, mode: str = "w") -> None:
+        self.path = Path(path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        remove_stale_parts(self.path)
+        fd, self.tmp = tempfile.mkstemp(
+            prefix=f".{self.path.name}.{os.getpid()}.", suffix=PART_SUFFIX, dir=self.path.parent
+        )
+        with contextlib.suppress(OSError):
+            os.fchmod(fd, 0o666 & ~_umask())
+        kwargs = {} if "b" in mode else {"encoding": "utf-8", "newline": ""}
+        self.handle: IO = os.fdopen(fd, mode, **kwargs)
+
+    def commit(self) -> Path:
+        """Flush the file to disk and rename it over the target.
+
+        Returns
+        -------
+        Path
+            The target.
+        """
+        try:
+            self.handle.flush()
+            os.fsync(self.handle.fileno())
+            self.handle.close()
+            os.replace(self.tmp, self.path)
+        except BaseException:
+            self.abort()
+            raise
+        _sync_folder(self.path.parent)
+        return self.path
+
+    def abort(self) -> None:
+        """Close and remove the temporary file; the target is left as it was."""
+        with contextlib.suppress(OSError):
+            self.handle.close()
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(self.tmp)
+
+
 def _sync_folder(folder: Path) -> None:
     """Flush a folder's entries (the rename) to disk, where the system allows it."""
     try:
@@ -212,6 +269,61 @@ def write_csv(path: str | Path, table: pd.DataFrame, float_digits: dict | None =
             for name, digits in (float_digits or {}).items():
                 out[name] = out[name].round(digits)
             out.to_csv(handle, index=False, header=start == 0, lineterminator="\n")
+
+
+class CsvAppender:
+    """Write a CSV table a piece at a time, with the bytes of :func:`write_csv`.
+
+    Parameters
+    ----------
+    path : str or Path
+        Destination file, renamed into place by :meth:`commit`.
+    float_digits : dict, optional
+        ``{column: decimals}`` for columns to round on output.
+    """
+
+    def __init__(self, path: str | Path, float_digits: dict | None = None) -> None:
+        self.file = AtomicFile(path)
+        self.float_digits = float_digits
+        self.rows = 0
+        self._header = False
+
+    def append(self, table: pd.DataFrame) -> None:
+        """Append rows (the first call, even with no rows, writes the header).
+
+        Parameters
+        ----------
+        table : pandas.DataFrame
+            The rows; every call must have the same columns and dtypes.
+        """
+        times = [n for n in table.columns
+                 if pd.api.types.is_datetime64_any_dtype(table[n].dtype)]
+        for start in range(0, max(len(table), 1), CSV_CHUNK_ROWS):
+            out = table.iloc[start : start + CSV_CHUNK_ROWS].copy()
+            if out.empty and self._header:
+                return
+            for name in times:
+                out[name] = format_time(out[name])
+            for name, digits in (self.float_digits or {}).items():
+                out[name] = out[name].round(digits)
+            out.to_csv(self.file.handle, index=False, header=not self._header,
+                       lineterminator="\n")
+            self._header = True
+        self.rows += len(table)
+
+    def commit(self) -> Path:
+        """Rename the file into place.
+
+        Returns
+        -------
+        Path
+            The file.
+        """
+        return self.file.commit()
+
+    def abort(self) -> None:
+        """Remove the temporary file."""
+        self.file.abort()
 
 
 def _json_default(value: Any) -> Any:

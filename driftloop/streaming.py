@@ -1,0 +1,936 @@
+"""Streaming runs: whole archives one drifter (or batch of drifters) at a time.
+
+:func:`run` gives the same output files, byte for byte, as
+:func:`driftloop.pipeline.analyse` followed by :meth:`Analysis.write
+<driftloop.pipeline.Analysis.write>`, without holding the release in memory:
+
+1. **read** -- every input file (sorted by path) is read in turn and its rows
+   are split by drifter into pieces kept in an anonymous temporary file in
+   the output folder; each row keeps its place in the input order;
+2. **drifters** -- each drifter's rows are gathered and run through QC,
+   resampling, the loop catalogue, the drift decomposition and the spectra
+   (:func:`process_batch`, in this process or on Dask workers, see
+   :mod:`driftloop.parallel`); the results are taken in drifter order and
+   appended to the outputs (resampled and loop tables, GIS layers), and the
+   flagged rows go back to the temporary file;
+3. **fixes** -- the flagged rows are put back in input order, one read
+   chunk at a time, and appended to ``fixes.csv`` and the fixes layer;
+4. **release** -- the summary, spectra and drift statistics of the release
+   are finished from what was accumulated, and every file is renamed into
+   place in the order of :meth:`Analysis.write`, ``provenance.json`` last.
+
+Memory therefore follows the largest input file (while it is read) and the
+longest drifter, not the number of drifters, with two exceptions kept
+small: ``resampled.nc`` is written at the end from memory-mapped columns
+(one 8-byte column of the resampled points at a time), and the release
+drift statistics (pooled quantiles and the pooled dispersion bootstrap)
+need the drift velocity of every resampled point (32 bytes per point),
+loaded at the end.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import io
+import json
+import tempfile
+import threading
+import time
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from driftloop.config import Config, provenance
+from driftloop.io import read_file
+
+__all__ = ["CHUNK_ROWS", "BatchResult", "StreamRun", "process_batch", "run"]
+
+#: Rows of an input file handled as one chunk (fixes.csv is written a chunk at a time).
+CHUNK_ROWS = 250_000
+
+#: Rows gathered into one batch of drifters for a worker (a drifter is never split).
+BATCH_ROWS = 50_000
+
+#: Most drifters in one batch.
+BATCH_DRIFTERS = 32
+
+_KINDS = ("inertial", "eddy", "tidal", "other")
+
+#: Columns of the decomposition pooled over the release for its drift statistics.
+_POOLED = ("u_drift", "v_drift", "u_inertial", "v_inertial")
+
+
+# ---------------------------------------------------------------------------
+# temporary storage
+# ---------------------------------------------------------------------------
+
+
+class _Spool:
+    """Tables (Arrow IPC) and arrays (``.npy``) in an anonymous temporary file.
+
+    Each item is written at the end of the file; :meth:`put` returns where
+    it lies and :meth:`get` reads it back with its dtypes and index.
+    """
+
+    def __init__(self, folder: Path) -> None:
+        self._file = tempfile.TemporaryFile(dir=folder)
+        self._end = 0
+
+    def _write(self, data: bytes) -> tuple[int, int]:
+        self._file.seek(self._end)
+        self._file.write(data)
+        where = (self._end, len(data))
+        self._end += len(data)
+        return where
+
+    def _read(self, where: tuple[int, int]) -> bytes:
+        self._file.seek(where[0])
+        return self._file.read(where[1])
+
+    def put(self, table: pd.DataFrame) -> tuple[int, int]:
+        import pyarrow as pa
+
+        arrow = pa.Table.from_pandas(table, preserve_index=True)
+        sink = pa.BufferOutputStream()
+        with pa.ipc.new_stream(sink, arrow.schema) as writer:
+            writer.write_table(arrow)
+        return self._write(sink.getvalue().to_pybytes())
+
+    def get(self, where: tuple[int, int]) -> pd.DataFrame:
+        import pyarrow as pa
+
+        return pa.ipc.open_stream(pa.py_buffer(self._read(where))).read_all().to_pandas()
+
+    def put_arrays(self, arrays: Sequence[np.ndarray]) -> tuple[int, int]:
+        buffer = io.BytesIO()
+        for array in arrays:
+            np.save(buffer, np.asarray(array), allow_pickle=False)
+        return self._write(buffer.getvalue())
+
+    def get_arrays(self, where: tuple[int, int], count: int) -> list[np.ndarray]:
+        buffer = io.BytesIO(self._read(where))
+        return [np.load(buffer, allow_pickle=False) for _ in range(count)]
+
+    def close(self) -> None:
+        self._file.close()
+
+
+class _Columns:
+    """Numeric columns appended to anonymous temporary files, memory-mapped at the end."""
+
+    def __init__(self, folder: Path, dtypes: dict[str, Any]) -> None:
+        self.dtypes = dtypes
+        self._files = {n: tempfile.TemporaryFile(dir=folder) for n in dtypes}
+        self.size = 0
+
+    def append(self, columns: dict[str, np.ndarray]) -> None:
+        for name, dtype in self.dtypes.items():
+            np.ascontiguousarray(columns[name], dtype=dtype).tofile(self._files[name])
+        self.size += len(next(iter(columns.values())))
+
+    def array(self, name: str) -> np.ndarray:
+        handle = self._files[name]
+        handle.flush()
+        if self.size == 0:
+            return np.empty(0, dtype=self.dtypes[name])
+        return np.memmap(handle, dtype=self.dtypes[name], mode="r", shape=(self.size,))
+
+    def close(self) -> None:
+        for handle in self._files.values():
+            handle.close()
+
+
+# ---------------------------------------------------------------------------
+# per-drifter work
+# ---------------------------------------------------------------------------
+
+_STATE = threading.local()
+
+
+def _add_time(stage: str, seconds: float) -> None:
+    timer = getattr(_STATE, "timer", None)
+    if timer is not None:
+        timer[stage] = timer.get(stage, 0.0) + seconds
+
+
+def _install_hooks() -> None:
+    """Time the wavelet transforms and ridge searches, and share ridges within a drifter.
+
+    :func:`driftloop.loops.find_events` and :func:`driftloop.drift.decompose`
+    both run :func:`driftloop.ridges.detect` on every segment, on the same
+    velocities with the same parameters.  While a drifter is processed here,
+    the first result is kept (keyed by a digest of the velocities, the step
+    and the parameters) and handed to the second caller, so each segment is
+    transformed once; the results are those of a fresh call, since
+    ``detect`` is a function of its arguments.  The hooks also add the time
+    spent in the transform and in ``detect`` to the stage timer; outside
+    :func:`process_batch` they only pass the call on.
+    """
+    import driftloop.drift as drift_module
+    import driftloop.loops as loops_module
+    import driftloop.ridges as ridges_module
+
+    if getattr(loops_module.detect, "_driftloop_hook", False):
+        return
+    original_detect = loops_module.detect
+
+    def detect(z, dt_s, config=None, **kwargs):
+        cache = getattr(_STATE, "cache", None)
+        key = None
+        if cache is not None and not kwargs:
+            array = np.ascontiguousarray(z)
+            try:
+                key = (hashlib.blake2b(array.tobytes(), digest_size=20).digest(),
+                       array.shape, array.dtype.str, float(dt_s), config)
+                hash(key)
+            except TypeError:
+                key = None
+            if key is not None and key in cache:
+                return cache[key]
+        start = time.perf_counter()
+        result = original_detect(z, dt_s, config, **kwargs)
+        _add_time("_detect", time.perf_counter() - start)
+        if key is not None:
+            cache[key] = result
+        return result
+
+    detect._driftloop_hook = True  # type: ignore[attr-defined]
+    loops_module.detect = detect
+    drift_module.detect = detect
+    import driftloop.wavelet as wavelet_module
+
+    for module, name in ((ridges_module, "rotary_transform"), (wavelet_module, "rotary_transform"),
+                         *((wavelet_module, n) for n in _TRANSFORM_STEPS)):
+        target = getattr(module, name, None)
+        if callable(target) and not getattr(target, "_driftloop_hook", False):
+            setattr(module, name, _timed(target))
+
+
+#: Functions of :mod:`driftloop.wavelet` whose time counts as "transform"
+#: (the forward FFT and the inverse FFTs of the wavelet filters), where the
+#: ridge search runs block by block inside the transform.
+_TRANSFORM_STEPS = ("_half_spectra", "_ifft_into")
+
+
+def _timed(function):
+    """Wrap a transform step: its time (outermost call only) goes to the stage timer."""
+
+    def timed(*args, **kwargs):
+        depth = getattr(_STATE, "depth", 0)
+        _STATE.depth = depth + 1
+        start = time.perf_counter()
+        try:
+            return function(*args, **kwargs)
+        finally:
+            _STATE.depth = depth
+            if depth == 0:
+                _add_time("_transform", time.perf_counter() - start)
+
+    timed._driftloop_hook = True  # type: ignore[attr-defined]
+    timed.__wrapped__ = function  # type: ignore[attr-defined]
+    return timed
+
+
+@dataclass
+class BatchResult:
+    """What the stages give for a batch of drifters (see :func:`process_batch`).
+
+    Tables hold the batch's drifters in sorted order; per-drifter values
+    are keyed by drifter id.
+    """
+
+    drifters: list
+    flagged: pd.DataFrame
+    summary: Any
+    timings: dict[str, float] = field(default_factory=dict)
+    track: pd.DataFrame | None = None
+    dropped: list = field(default_factory=list)
+    events: pd.DataFrame | None = None
+    ridges: int = 0
+    notes: list = field(default_factory=list)
+    spectra: list = field(default_factory=list)
+    peaks: dict = field(default_factory=dict)
+    drift: dict = field(default_factory=dict)
+    step_counts: dict = field(default_factory=dict)
+    local_dt_s: dict = field(default_factory=dict)
+    pooled: dict = field(default_factory=dict)
+    series: dict = field(default_factory=dict)
+    decay: dict = field(default_factory=dict)
+    layers: dict = field(default_factory=dict)
+    obs: dict | None = None
+
+
+def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, stages: str,
+             layers: bool) -> BatchResult:
+    from driftloop.qc import QC_COLUMNS, run_qc
+    from driftloop.summary import SummaryAccumulator
+
+    timer: dict[str, float] = {}
+    _STATE.timer = timer
+    _STATE.cache = {}
+    try:
+        clock = time.perf_counter()
+
+        def lap(stage: str) -> None:
+            nonlocal clock
+            now = time.perf_counter()
+            timer[stage] = timer.get(stage, 0.0) + now - clock
+            clock = now
+
+        summary = SummaryAccumulator(config)
+        parts = []
+        for drifter, rows in batch:
+            flags = run_qc(rows, config.qc).loc[:, list(QC_COLUMNS)]
+            flagged = rows.copy()
+            for name in QC_COLUMNS:
+                flagged[name] = flags[name]
+            summary.add_rows(flagged, drifter)
+            parts.append(flagged)
+        flagged = parts[0] if len(parts) == 1 else pd.concat(parts)
+        lap("qc")
+        result = BatchResult([d for d, _ in batch], flagged, summary, timer)
+        if stages == "qc":
+            return result
+        _later_stages(result, config, layers, lap)
+        timer["transform"] = timer.pop("_transform", 0.0)
+        detect_s = timer.pop("_detect", 0.0)
+        timer["ridges"] = max(detect_s - timer["transform"], 0.0)
+        timer["events"] = max(timer.pop("loops", 0.0) - detect_s, 0.0)
+        return result
+    finally:
+        _STATE.timer = None
+        _STATE.cache = None
+
+
+def _later_stages(result: BatchResult, config: Config, layers: bool, lap) -> None:
+    from driftloop.drift import (
+        decompose,
+        drift_series,
+        drifter_drift_statistics,
+        grid_step_counts,
+        grid_step_from_counts,
+        inertial_decay_times,
+    )
+    from driftloop.loops import find_events
+    from driftloop.resample import resample_all
+    from driftloop.spectra import SpectraAccumulator, inertial_peak_check
+
+    resampled = resample_all(result.flagged, config.resample, config.qc.gps_noise_m)
+    track = resampled.track
+    result.track, result.dropped = track, resampled.dropped
+    lap("resample")
+    catalogue = find_events(track, config.loops, config.wavelet)
+    events = catalogue.events
+    result.events, result.ridges, result.notes = events, catalogue.ridges, catalogue.notes
+    lap("loops")
+    decomposed = decompose(track, config.wavelet, events)
+    lap("drift")
+    spectra = SpectraAccumulator()
+    for drifter, group in track.groupby("drifter_id", sort=True, observed=True):
+        rows = spectra.drifter_rows(str(drifter), group)
+        spectra.add_rows(rows)
+        result.spectra.append(rows)
+    result.peaks = inertial_peak_check(spectra.table(), track,
+                                       equator_band_deg=config.loops.equator_band_deg)
+    lap("spectra")
+    decay = inertial_decay_times(events)
+    ids = decomposed["drifter_id"].astype(str) if len(decomposed) else None
+    for drifter in ([] if ids is None else sorted(ids.unique())):
+        rows = decomposed[(ids == drifter).to_numpy()]
+        counts = grid_step_counts(rows)
+        dt_s = grid_step_from_counts(counts)
+        result.step_counts[drifter], result.local_dt_s[drifter] = counts, dt_s
+        result.decay[drifter] = decay.get(drifter, [])
+        result.drift[drifter] = drifter_drift_statistics(rows, drifter, result.decay[drifter],
+                                                         dt_s)
+        result.series[drifter] = drift_series(rows, drifter, dt_s)
+        pooled = {name: rows[name].to_numpy(dtype=float) for name in _POOLED}
+        pooled["time_ns"] = pd.DatetimeIndex(pd.to_datetime(rows["time"], utc=True)).asi8
+        result.pooled[drifter] = pooled
+    lap("drift")
+    if layers:
+        from driftloop.export.layers import (
+            loop_centres_layer,
+            loop_shapes_layer,
+            loops_layer,
+            tracks_layer,
+        )
+
+        result.layers = {"tracks": tracks_layer(track), "loops": loops_layer(events, track),
+                         "loop_centres": loop_centres_layer(events),
+                         "loop_shapes": loop_shapes_layer(events)}
+    if len(track):
+        from driftloop.io.trajectory_nc import obs_columns
+
+        result.obs = obs_columns(track)
+    lap("layers")
+
+
+def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config,
+                  stages: str = "all", layers: bool = True) -> BatchResult:
+    """Run the per-drifter stages on a batch of drifters.
+
+    QC runs drifter by drifter; the later stages run on the batch's table,
+    where every stage treats each drifter on its own, so a drifter's
+    results do not depend on which batch it is in.
+
+    Parameters
+    ----------
+    batch : sequence of (drifter id, rows)
+        Drifters in sorted order (``None``, the rows without a drifter id,
+        last), each drifter's rows in input order and indexed by their
+        position in the input.
+    config : Config
+        The configuration.
+    stages : {"all", "qc"}
+        ``"qc"`` stops after quality control.
+    layers : bool
+        Whether to build the GIS layers of the tracks and events.
+
+    Returns
+    -------
+    BatchResult
+        The batch's flagged rows, tables and per-drifter values.
+    """
+    _install_hooks()
+    return _process(batch, config, stages, layers)
+
+
+# ---------------------------------------------------------------------------
+# the run
+# ---------------------------------------------------------------------------
+
+
+@dataclass
+class StreamRun:
+    """What :func:`run` did.
+
+    Attributes
+    ----------
+    files : list of Path
+        The files written, ``provenance.json`` last.
+    summary : dict
+        The ``summary.json`` content.
+    inputs : list of dict
+        One ``{"file", "rows"}`` entry per input file.
+    stage_seconds : dict of str to float
+        Time of each stage; the per-drifter stages are summed over drifters
+        (over workers when they run in parallel).
+    wall_seconds : float
+        Wall-clock time of the run.
+    problems : pandas.DataFrame
+        The first rows (in input order) that did not parse or hold
+        impossible coordinates.
+    problem_count : int
+        How many such rows there are.
+    drifters : int
+        Drifters processed.
+    """
+
+    files: list[Path]
+    summary: dict
+    inputs: list[dict]
+    stage_seconds: dict[str, float]
+    wall_seconds: float
+    problems: pd.DataFrame
+    problem_count: int
+    drifters: int
+
+
+def _read_pass(paths: Sequence[Path], config: Config, spool: _Spool):
+    """Read every input, splitting its rows by drifter; returns the index and chunks."""
+    index: dict[Any, list[int]] = {}
+    chunks: list[tuple[int, int]] = []
+    info = []
+    row = 0
+    attrs: dict | None = None
+    for path in sorted(paths, key=str):
+        table = read_file(path, config.read)
+        info.append({"file": str(path), "rows": len(table)})
+        # the whole-table path concatenates the files, which keeps attrs they share
+        attrs = dict(table.attrs) if attrs is None or attrs == table.attrs else {}
+        pos = 0
+        while pos < len(table):
+            # chunks fill up across files, so that a folder of small files is
+            # written in a few large pieces
+            if not chunks or chunks[-1][1] >= CHUNK_ROWS:
+                chunks.append((row, 0))
+            take = min(len(table) - pos, CHUNK_ROWS - chunks[-1][1])
+            piece = table.iloc[pos:pos + take].copy()
+            piece.index = pd.RangeIndex(row, row + take)
+            chunks[-1] = (chunks[-1][0], chunks[-1][1] + take)
+            row += take
+            pos += take
+            ids = piece["drifter_id"]
+            first = ids.iloc[0]
+            if pd.notna(first) and bool((ids == first).all()):  # one drifter: no split
+                index.setdefault(str(first), []).append(spool.put(piece))
+                continue
+            for key, group in piece.groupby("drifter_id", sort=False, observed=True,
+                                             dropna=False):
+                key = None if pd.isna(key) else str(key)
+                index.setdefault(key, []).append(spool.put(group))
+        del table
+    return index, chunks, info, row, attrs or {}
+
+
+def _batches(index: dict, spool: _Spool) -> Iterator[list[tuple[str | None, pd.DataFrame]]]:
+    keys = sorted(k for k in index if k is not None) + ([None] if None in index else [])
+    batch: list[tuple[str | None, pd.DataFrame]] = []
+    rows = 0
+    for key in keys:
+        parts = [spool.get(o) for o in index[key]]
+        group = parts[0] if len(parts) == 1 else pd.concat(parts)
+        batch.append((key, group))
+        rows += len(group)
+        if rows >= BATCH_ROWS or len(batch) >= BATCH_DRIFTERS:
+            yield batch
+            batch, rows = [], 0
+    if batch:
+        yield batch
+
+
+def _problem_mask(flagged: pd.DataFrame) -> np.ndarray:
+    return flagged["qc_reasons"].str.contains(
+        r"unparseable|lat_out_of_range|lon_out_of_range", regex=True
+    ).to_numpy(dtype=bool, na_value=False)
+
+
+def run(
+    paths: Sequence[str | Path],
+    out_dir: str | Path,
+    config: Config | None = None,
+    *,
+    stages: str = "all",
+    formats: Sequence[str] = ("geojson",),
+    overwrite: bool = False,
+    protect: Sequence[str | Path] = (),
+    workers: int = 1,
+    scheduler: str | None = None,
+    progress: bool = False,
+    check: Callable[[pd.DataFrame, int], None] | None = None,
+    max_problems: int = 10,
+) -> StreamRun:
+    """Run driftloop on track files drifter by drifter and write every output.
+
+    Parameters
+    ----------
+    paths : sequence of path
+        Track files (read in sorted path order).
+    out_dir : str or Path
+        Output folder (as for :meth:`driftloop.pipeline.Analysis.write`).
+    config : Config, optional
+        Configuration.
+    stages : {"all", "qc"}
+        ``"qc"`` stops after quality control (``fixes.csv``, its metadata,
+        ``summary.json``, ``provenance.json``).
+    formats : sequence of str
+        GIS formats of the layers, as for :meth:`Analysis.write`.
+    overwrite : bool
+        Allow writing into a non-empty folder that is not a driftloop run.
+    protect : sequence of path
+        Files that must never be overwritten (the inputs).
+    workers : int
+        Processes on this machine that run drifters in parallel (Dask); 1
+        runs everything in this process.
+    scheduler : str, optional
+        Address of a running ``dask.distributed`` scheduler to send the
+        drifters to instead.
+    progress : bool
+        Show a progress bar over drifters when there are many.
+    check : callable, optional
+        Called with the problem rows and their count before any file is
+        renamed into place; raising stops the run and leaves the folder as
+        it was.
+    max_problems : int
+        Problem rows kept for ``check`` and :attr:`StreamRun.problems`.
+
+    Returns
+    -------
+    StreamRun
+        The files written and the summary.
+
+    Raises
+    ------
+    InputError
+        If an input cannot be read or the output folder cannot be used.
+    """
+    from driftloop.pipeline import (
+        FIXES_CSV_COLUMNS,
+        OUTPUT_NAMES,
+        PROGRESS_MIN_DRIFTERS,
+        RUN_MARKER,
+        _csv_metadata,
+        _refuse_overwriting_inputs,
+        _run_provenance,
+        prepare_out_dir,
+    )
+
+    if stages not in ("all", "qc"):
+        raise ValueError(f"stages must be 'all' or 'qc', got {stages!r}")
+    config = config or Config()
+    wall = time.perf_counter()
+    created = not Path(out_dir).exists()
+    out = prepare_out_dir(out_dir, overwrite=overwrite)
+    _refuse_overwriting_inputs([out / n for n in OUTPUT_NAMES], protect)
+    timings: dict[str, float] = {}
+    raw = _Spool(out)
+    flagged_spool = _Spool(out)
+    writers: list[Any] = []
+    state = None
+    try:
+        clock = time.perf_counter()
+        index, chunks, info, n_rows, attrs = _read_pass([Path(p) for p in paths], config, raw)
+        timings["read"] = time.perf_counter() - clock
+        if n_rows == 0:
+            return _whole_table_fallback(paths, out, config, stages, formats, protect, wall)
+        analyse = stages == "all"
+        info_prov = provenance(config)
+        state = _ReleaseState(out, config, analyse)
+        export = None
+        if analyse:
+            from driftloop.export.stream import StreamExport
+
+            gis = [f for f in formats if f != "csv"]
+            export = StreamExport(out, [*gis, "csv"], provenance=info_prov)
+            writers.append(export)
+        by_chunk: list[list[int]] = [[] for _ in chunks]
+        starts = np.array([c[0] for c in chunks], dtype=np.int64)
+        n_drifters = len(index)
+        bar = None
+        if progress and n_drifters >= PROGRESS_MIN_DRIFTERS:
+            from tqdm import tqdm
+
+            bar = tqdm(total=n_drifters, desc="drifters", unit="drifter", leave=False,
+                       disable=None)
+        from driftloop.parallel import ordered_map
+
+        for result in ordered_map(process_batch, _batches(index, raw),
+                                  args=(config, stages, export is not None),
+                                  workers=workers, scheduler=scheduler):
+            start = time.perf_counter()
+            for stage, seconds in result.timings.items():
+                timings[stage] = timings.get(stage, 0.0) + seconds
+            flagged = result.flagged
+            which = np.searchsorted(starts, flagged.index.to_numpy(), side="right") - 1
+            for c in np.unique(which):
+                by_chunk[c].append(flagged_spool.put(flagged[which == c]))
+            state.add(result, export)
+            timings["write"] = timings.get("write", 0.0) + time.perf_counter() - start
+            if bar is not None:
+                bar.update(len(result.drifters))
+        if bar is not None:
+            bar.close()
+        clock = time.perf_counter()
+        fixes_csv = _fixes_pass(out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS, export,
+                                max_problems, attrs)
+        writers.append(fixes_csv.appender)
+        summary, spectra = state.finish(info, fixes_csv.rows)
+        if check is not None:
+            check(fixes_csv.problems, fixes_csv.problem_count)
+        files = [fixes_csv.appender.commit()]
+        from driftloop.io.writers import write_json
+
+        write_json(out / "fixes.csv-metadata.json", _csv_metadata("fixes.csv", config))
+        files.append(out / "fixes.csv-metadata.json")
+        if export is not None:
+            files += export.commit()
+            files.append(state.write_nc(out / "resampled.nc", info_prov))
+            from driftloop.export.formats import write_table_csv
+
+            files += write_table_csv(
+                out / "spectra.csv", spectra,
+                description="Rotary (Welch) spectra of the resampled velocities, per drifter "
+                "and for the release; PSD in (m/s)^2 per cycle per day.",
+                provenance=info_prov,
+            )
+        write_json(out / "summary.json", summary)
+        timings["write"] = timings.get("write", 0.0) + time.perf_counter() - clock
+        wall_s = time.perf_counter() - wall
+        doc = _run_provenance(config, info, timings)
+        doc["run_seconds"] = round(wall_s, 3)
+        write_json(out / RUN_MARKER, doc)
+        files += [out / "summary.json", out / RUN_MARKER]
+        return StreamRun(files, summary, info, timings, wall_s, fixes_csv.problems,
+                         fixes_csv.problem_count, n_drifters)
+    except BaseException:
+        for writer in writers:
+            writer.abort()
+        raw.close()
+        flagged_spool.close()
+        if state is not None:
+            state.close()
+        if created:  # a failed first run leaves no folder behind, as before it
+            with contextlib.suppress(OSError):
+                out.rmdir()
+        raise
+    finally:
+        raw.close()
+        flagged_spool.close()
+        if state is not None:
+            state.close()
+
+
+def _whole_table_fallback(paths, out, config, stages, formats, protect, wall) -> StreamRun:
+    """Write the (empty) outputs of an input without rows by the whole-table path."""
+    from driftloop.pipeline import analyse
+
+    result = analyse(list(paths), config, stages=stages)
+    files = result.write(out, overwrite=True, protect=protect, formats=formats)
+    return StreamRun(files, result.summary, result.inputs, dict(result.stage_seconds),
+                     time.perf_counter() - wall, result.fixes.iloc[:0], 0, 0)
+
+
+@dataclass
+class _FixesPass:
+    appender: Any
+    rows: int
+    problems: pd.DataFrame
+    problem_count: int
+
+
+def _fixes_pass(out: Path, by_chunk, spool: _Spool, columns, export, max_problems: int,
+                attrs: dict) -> _FixesPass:
+    from driftloop.io.writers import CsvAppender
+
+    appender = CsvAppender(out / "fixes.csv")
+    problems: list[pd.DataFrame] = []
+    count = kept = 0
+    try:
+        for offsets in by_chunk:
+            parts = [spool.get(o) for o in offsets]
+            table = pd.concat(parts) if len(parts) > 1 else parts[0]
+            if not table.index.is_monotonic_increasing:  # back to input order
+                table = table.sort_index()
+            table.attrs = dict(attrs)
+            appender.append(table.loc[:, list(columns)])
+            mask = _problem_mask(table)
+            count += int(mask.sum())
+            if kept < max_problems and mask.any():
+                head = table[mask].head(max_problems - kept)
+                problems.append(head)
+                kept += len(head)
+            if export is not None:
+                from driftloop.export.layers import fixes_layer
+
+                export.add_layer("fixes", fixes_layer(table.reset_index(drop=True)))
+    except BaseException:
+        appender.abort()
+        raise
+    bad = pd.concat(problems) if problems else table.iloc[:0]
+    return _FixesPass(appender, appender.rows, bad, count)
+
+
+class _ReleaseState:
+    """What the release-level outputs accumulate over drifters (in drifter order)."""
+
+    def __init__(self, out: Path, config: Config, analyse: bool) -> None:
+        from driftloop.spectra import SpectraAccumulator
+        from driftloop.summary import SummaryAccumulator
+
+        self.config = config
+        self.analyse = analyse
+        self.summary = SummaryAccumulator(config)
+        self.spectra = SpectraAccumulator()
+        self.entries: dict[str, dict] = {}
+        self.resample = {"points": 0, "segments": 0, "points_in_gaps": 0, "dropped": []}
+        self.loops = {"ridges": 0, "events": 0, "by_kind": dict.fromkeys(_KINDS, 0),
+                      "notes": []}
+        self.checked = 0
+        self.within = 0
+        self.drift: dict[str, dict] = {}
+        self.local_dt: dict[str, float] = {}
+        self.step_counts: dict[int, int] = {}
+        self.decay: list[float] = []
+        self.decay_by: dict[str, list[float]] = {}
+        self.pooled_spool = _Spool(out) if analyse else None
+        self.pooled_offsets: list[tuple[str, int]] = []
+        self.trajectories: list[tuple[str, int, int]] = []
+        self.obs = None
+        if analyse:
+            from driftloop.io.trajectory_nc import OBS_DTYPES
+
+            self.obs = _Columns(out, OBS_DTYPES)
+        self._track_empty = None
+        self._events_empty = None
+
+    def add(self, result: BatchResult, export) -> None:
+        self.summary.merge(result.summary)
+        if not self.analyse:
+            return
+        track, events = result.track, result.events
+        track_ids = track["drifter_id"].astype(str).to_numpy() if len(track) else None
+        event_ids = events["drifter_id"].astype(str).to_numpy() if len(events) else None
+        dropped_by: dict[str, int] = {}
+        for item in result.dropped:
+            key = str(item.get("drifter_id"))
+            dropped_by[key] = dropped_by.get(key, 0) + 1
+        for drifter in result.drifters:
+            if drifter is None:
+                continue
+            if event_ids is not None:
+                kinds = events["kind"][(event_ids == drifter)]
+                counts = {k: int((kinds == k).sum()) for k in _KINDS}
+            else:
+                counts = dict.fromkeys(_KINDS, 0)
+            self.entries[drifter] = {
+                "events": counts,
+                "resampled_points": 0 if track_ids is None else int((track_ids == drifter).sum()),
+                "dropped_segments": dropped_by.get(drifter, 0),
+                "inertial_peak": result.peaks.get(
+                    drifter, {"checked": False, "reason": "no resampled segment"}),
+            }
+        self.resample["points"] += int(len(track))
+        self.resample["segments"] += int(track.groupby(["drifter_id", "segment"],
+                                                       observed=True).ngroups)
+        self.resample["points_in_gaps"] += int(track["in_gap"].sum())
+        self.resample["dropped"].extend(result.dropped)
+        self.loops["ridges"] += result.ridges
+        self.loops["events"] += int(len(events))
+        for k in _KINDS:
+            self.loops["by_kind"][k] += int((events["kind"] == k).sum())
+        self.loops["notes"].append(result.notes)
+        for peak in result.peaks.values():
+            if peak.get("checked"):
+                self.checked += 1
+                self.within += int(bool(peak["within_tolerance"]))
+        for rows in result.spectra:
+            self.spectra.add_rows(rows)
+        for drifter, entry in result.drift.items():
+            self.drift[drifter] = entry
+            self.local_dt[drifter] = result.local_dt_s[drifter]
+            for step, n in result.step_counts[drifter].items():
+                self.step_counts[step] = self.step_counts.get(step, 0) + n
+            self.decay.extend(result.decay[drifter])
+            self.decay_by[drifter] = result.decay[drifter]
+            pooled = result.pooled[drifter]
+            offset = self.pooled_spool.put_arrays(
+                [pooled[n] for n in (*_POOLED, "time_ns")] + list(result.series[drifter]))
+            self.pooled_offsets.append((drifter, offset))
+        if len(track):
+            seg = track["segment"].to_numpy()
+            new = np.r_[True, (seg[1:] != seg[:-1]) | (track_ids[1:] != track_ids[:-1])]
+            starts = np.flatnonzero(new)
+            counts = np.diff(np.r_[starts, seg.size])
+            for d, s_, n in zip(track_ids[starts].tolist(), seg[starts].tolist(),
+                                counts.tolist(), strict=True):
+                self.trajectories.append((d, int(s_), int(n)))
+            self.obs.append(result.obs)
+        if export is not None:
+            export.add_table("tracks", track)
+            export.add_table("events", events)
+            for name, layer in result.layers.items():
+                export.add_layer(name, layer)
+
+    def finish(self, inputs: list[dict], rows_out: int) -> tuple[dict, pd.DataFrame | None]:
+        summary = self.summary.finish(inputs, rows_out)
+        if not self.analyse:
+            return summary, None
+        summary["resample"] = {
+            "points": self.resample["points"], "segments": self.resample["segments"],
+            "points_in_gaps": self.resample["points_in_gaps"],
+            "dropped_segments": self.resample["dropped"],
+        }
+        notes = _merge_notes(self.loops["notes"])
+        summary["loops"] = {"ridges": self.loops["ridges"], "events": self.loops["events"],
+                            "by_kind": self.loops["by_kind"], "notes": notes}
+        for drifter, entry in summary["drifters"].items():
+            entry.update(self.entries.get(drifter, {
+                "events": dict.fromkeys(_KINDS, 0), "resampled_points": 0,
+                "dropped_segments": 0,
+                "inertial_peak": {"checked": False, "reason": "no resampled segment"}}))
+        summary["release"]["inertial_peak_check"] = {
+            "drifters_checked": self.checked, "within_tolerance": self.within,
+            "tolerance": 0.15,
+        }
+        summary["release"]["notes"].extend(notes)
+        drift = self._drift()
+        summary["drift"] = drift.get("(release)")
+        for drifter, entry in summary["drifters"].items():
+            entry["drift"] = drift.get(drifter)
+        return summary, self.spectra.table().table
+
+    def _drift(self) -> dict[str, dict]:
+        from driftloop.drift import (
+            RELEASE_KEY,
+            drift_series,
+            drifter_drift_statistics,
+            grid_step_from_counts,
+            release_drift_statistics,
+        )
+
+        if not self.drift:
+            return {}
+        dt_s = grid_step_from_counts(self.step_counts)
+        pooled, series = [], []
+        result = {}
+        for drifter, offset in self.pooled_offsets:
+            arrays = self.pooled_spool.get_arrays(offset, len(_POOLED) + 3)
+            columns = dict(zip(_POOLED, arrays[:len(_POOLED)], strict=True))
+            own = (arrays[-2], arrays[-1])
+            if self.local_dt[drifter] != dt_s:  # a release of mixed grid steps
+                rows = pd.DataFrame({"drifter_id": drifter, "segment": 0,
+                                     "time": pd.to_datetime(arrays[len(_POOLED)], utc=True),
+                                     **columns})
+                result[drifter] = drifter_drift_statistics(
+                    rows, drifter, self.decay_by[drifter], dt_s)
+                own = drift_series(rows, drifter, dt_s)
+            else:
+                result[drifter] = self.drift[drifter]
+            pooled.append(columns)
+            series.append(own)
+        rows = pd.DataFrame({k: np.concatenate([p[k] for p in pooled]) for k in pooled[0]})
+        result[RELEASE_KEY] = release_drift_statistics(rows, self.decay, series, dt_s,
+                                                       len(result))
+        self.pooled_spool.close()
+        return result
+
+    def close(self) -> None:
+        """Close the temporary files."""
+        if self.pooled_spool is not None:
+            self.pooled_spool.close()
+        if self.obs is not None:
+            self.obs.close()
+
+    def write_nc(self, path: Path, info: dict) -> Path:
+        from driftloop.io.trajectory_nc import write_trajectories_nc_columns
+
+        drifters = np.array([t[0] for t in self.trajectories], dtype=object)
+        segments = np.array([t[1] for t in self.trajectories], dtype=np.int32)
+        counts = np.array([t[2] for t in self.trajectories], dtype=np.int32)
+        columns = {name: self.obs.array(name) for name in self.obs.dtypes}
+        try:
+            return write_trajectories_nc_columns(
+                path, drifters, segments, counts, columns,
+                {"driftloop_provenance": json.dumps(info, sort_keys=True)})
+        finally:
+            del columns
+            self.obs.close()
+
+
+def _merge_notes(per_drifter: list[list[str]]) -> list[str]:
+    """Merge per-drifter notes into the release notes.
+
+    Counts of notes that differ only in their leading number are added up;
+    other notes are kept once, in order.
+    """
+    totals: dict[str, int] = {}
+    plain: list[str] = []
+    order: list[tuple[str, str]] = []
+    for notes in per_drifter:
+        for note in notes:
+            head, sep, rest = note.partition(" ")
+            if sep and head.isdigit():
+                if rest not in totals:
+                    order.append(("count", rest))
+                totals[rest] = totals.get(rest, 0) + int(head)
+            elif note not in plain:
+                plain.append(note)
+                order.append(("plain", note))
+    return [f"{totals[text]} {text}" if kind == "count" else text for kind, text in order]
+
