@@ -100,6 +100,18 @@ def _crosses_antimeridian(geom: BaseGeometry) -> bool:
     return False
 
 
+def _may_cross(line: BaseGeometry) -> bool:
+    """Whether consecutive vertices of a line are (nearly) 180 degrees of longitude apart.
+
+    :func:`antimeridian.fix_shape` cuts a line where, after dropping vertices
+    within 1e-8 degree of the one before, consecutive longitudes differ by
+    more than 180; a line whose steps all stay 1e-6 degree below that is
+    returned as it was.
+    """
+    lon = shapely.get_coordinates(line)[:, 0]
+    return lon.size > 1 and bool(np.abs(np.diff(lon)).max() > 180.0 - 1e-6)
+
+
 def _orient_polygons(geom: BaseGeometry) -> BaseGeometry:
     if geom.geom_type == "Polygon":
         return orient(geom, sign=1.0)
@@ -151,8 +163,12 @@ def conform_geometry(geom: BaseGeometry | None) -> BaseGeometry | None:
     if kind in _POINTS:
         return _wrap_array(geom)
     if kind in _LINES:
+        geom = _wrap_array(geom)
+        if kind == "LineString" and not _may_cross(geom):
+            # antimeridian.fix_shape gives a line that crosses nowhere back unchanged
+            return geom
         fixed = shapely.geometry.shape(
-            antimeridian.fix_shape(_wrap_array(geom), great_circle=True)
+            antimeridian.fix_shape(geom, great_circle=True)
         )
         return fixed
     if kind in _POLYGONS:
