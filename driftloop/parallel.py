@@ -28,10 +28,86 @@ from typing import Any
 
 from driftloop.errors import InputError
 
-__all__ = ["IN_FLIGHT_PER_THREAD", "ordered_map"]
+__all__ = ["IN_FLIGHT_PER_THREAD", "Executor", "executor", "ordered_map"]
 
 #: Items submitted ahead per worker thread.
 IN_FLIGHT_PER_THREAD = 3
+
+
+class Executor:
+    """Runs functions on items, in this process or on a Dask client, results in order."""
+
+    def __init__(self, client: Any = None) -> None:
+        self.client = client
+
+    def map(self, func: Callable[..., Any], items: Iterable[Any], args: tuple = ()
+            ) -> Iterator[Any]:
+        """Yield ``func(item, *args)`` for each item, in item order.
+
+        Parameters
+        ----------
+        func : callable
+            A module-level function (workers import it by name).
+        items : iterable
+            The items; consumed lazily, a few per worker thread ahead.
+        args : tuple
+            Further arguments, the same for every item (sent once).
+
+        Yields
+        ------
+        object
+            The results, in item order.
+        """
+        if self.client is None:
+            for item in items:
+                yield func(item, *args)
+            return
+        client = self.client
+        threads = max(1, sum(client.nthreads().values()))
+        limit = IN_FLIGHT_PER_THREAD * threads
+        pending: deque = deque()
+        shared = client.scatter(list(args), broadcast=True) if args else []
+        try:
+            for item in items:
+                pending.append(client.submit(func, item, *shared, pure=False))
+                if len(pending) >= limit:
+                    yield pending.popleft().result()
+            while pending:
+                yield pending.popleft().result()
+        finally:
+            for future in pending:
+                future.cancel()
+
+
+@contextlib.contextmanager
+def executor(workers: int = 1, scheduler: str | None = None) -> Iterator[Executor]:
+    """Give an :class:`Executor` for the run, starting and stopping a local cluster if asked.
+
+    Parameters
+    ----------
+    workers : int
+        Worker processes on this machine (1: run in this process, no Dask).
+    scheduler : str, optional
+        Address of a running Dask scheduler, e.g. ``tcp://10.0.0.5:8786``;
+        takes precedence over ``workers``.
+
+    Yields
+    ------
+    Executor
+        The executor.
+
+    Raises
+    ------
+    InputError
+        If Dask is not installed or the scheduler cannot be reached.
+    """
+    if workers < 1:
+        raise ValueError(f"workers must be at least 1, got {workers}")
+    if scheduler is None and workers == 1:
+        yield Executor()
+        return
+    with _client(workers, scheduler) as client:
+        yield Executor(client)
 
 
 def ordered_map(func: Callable[..., Any], items: Iterable[Any], *, args: tuple = (),
@@ -49,40 +125,15 @@ def ordered_map(func: Callable[..., Any], items: Iterable[Any], *, args: tuple =
     workers : int
         Worker processes on this machine (1: run in this process).
     scheduler : str, optional
-        Address of a running Dask scheduler, e.g. ``tcp://10.0.0.5:8786``;
-        takes precedence over ``workers``.
+        Address of a running Dask scheduler; takes precedence over ``workers``.
 
     Yields
     ------
     object
         The results, in item order.
-
-    Raises
-    ------
-    InputError
-        If Dask is not installed or the scheduler cannot be reached.
     """
-    if workers < 1:
-        raise ValueError(f"workers must be at least 1, got {workers}")
-    if scheduler is None and workers == 1:
-        for item in items:
-            yield func(item, *args)
-        return
-    with _client(workers, scheduler) as client:
-        threads = max(1, sum(client.nthreads().values()))
-        limit = IN_FLIGHT_PER_THREAD * threads
-        pending: deque = deque()
-        shared = client.scatter(list(args), broadcast=True) if args else []
-        try:
-            for item in items:
-                pending.append(client.submit(func, item, *shared, pure=False))
-                if len(pending) >= limit:
-                    yield pending.popleft().result()
-            while pending:
-                yield pending.popleft().result()
-        finally:
-            for future in pending:
-                future.cancel()
+    with executor(workers, scheduler) as ex:
+        yield from ex.map(func, items, args)
 
 
 @contextlib.contextmanager

@@ -48,7 +48,7 @@ import pandas as pd
 from driftloop.config import Config, provenance
 from driftloop.io import read_file
 
-__all__ = ["CHUNK_ROWS", "BatchResult", "StreamRun", "process_batch", "run"]
+__all__ = ["CHUNK_ROWS", "BatchResult", "StreamRun", "process_batch", "render_fixes", "run"]
 
 #: Rows of an input file handled as one chunk (fixes.csv is written a chunk at a time).
 CHUNK_ROWS = 250_000
@@ -262,11 +262,12 @@ class BatchResult:
     series: dict = field(default_factory=dict)
     decay: dict = field(default_factory=dict)
     layers: dict = field(default_factory=dict)
+    tables: dict = field(default_factory=dict)
     obs: dict | None = None
 
 
 def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, stages: str,
-             layers: bool) -> BatchResult:
+             formats: tuple) -> BatchResult:
     from driftloop.qc import QC_COLUMNS, run_qc
     from driftloop.summary import SummaryAccumulator
 
@@ -296,7 +297,7 @@ def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, s
         result = BatchResult([d for d, _ in batch], flagged, summary, timer)
         if stages == "qc":
             return result
-        _later_stages(result, config, layers, lap)
+        _later_stages(result, config, formats, lap)
         timer["transform"] = timer.pop("_transform", 0.0)
         detect_s = timer.pop("_detect", 0.0)
         timer["ridges"] = max(detect_s - timer["transform"], 0.0)
@@ -307,7 +308,7 @@ def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, s
         _STATE.cache = None
 
 
-def _later_stages(result: BatchResult, config: Config, layers: bool, lap) -> None:
+def _later_stages(result: BatchResult, config: Config, formats: tuple, lap) -> None:
     from driftloop.drift import (
         decompose,
         drift_series,
@@ -353,17 +354,22 @@ def _later_stages(result: BatchResult, config: Config, layers: bool, lap) -> Non
         pooled["time_ns"] = pd.DatetimeIndex(pd.to_datetime(rows["time"], utc=True)).asi8
         result.pooled[drifter] = pooled
     lap("drift")
-    if layers:
+    if formats:
         from driftloop.export.layers import (
             loop_centres_layer,
             loop_shapes_layer,
             loops_layer,
             tracks_layer,
         )
+        from driftloop.export.stream import render_layer
+        from driftloop.io.writers import csv_text
 
-        result.layers = {"tracks": tracks_layer(track), "loops": loops_layer(events, track),
-                         "loop_centres": loop_centres_layer(events),
-                         "loop_shapes": loop_shapes_layer(events)}
+        layers = {"tracks": tracks_layer(track), "loops": loops_layer(events, track),
+                  "loop_centres": loop_centres_layer(events),
+                  "loop_shapes": loop_shapes_layer(events)}
+        result.layers = {name: render_layer(layer, formats) for name, layer in layers.items()}
+        result.tables = {"tracks": (csv_text(track), len(track), track.iloc[:0]),
+                         "events": (csv_text(events), len(events), events.iloc[:0])}
     if len(track):
         from driftloop.io.trajectory_nc import obs_columns
 
@@ -372,7 +378,7 @@ def _later_stages(result: BatchResult, config: Config, layers: bool, lap) -> Non
 
 
 def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config,
-                  stages: str = "all", layers: bool = True) -> BatchResult:
+                  stages: str = "all", formats: tuple = ()) -> BatchResult:
     """Run the per-drifter stages on a batch of drifters.
 
     QC runs drifter by drifter; the later stages run on the batch's table,
@@ -389,8 +395,10 @@ def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Conf
         The configuration.
     stages : {"all", "qc"}
         ``"qc"`` stops after quality control.
-    layers : bool
-        Whether to build the GIS layers of the tracks and events.
+    formats : tuple of str
+        Export formats (as :class:`driftloop.export.stream.StreamExport`
+        takes them); the layers of the tracks and events and the CSV text of
+        the tables are prepared for them.  Empty: no export.
 
     Returns
     -------
@@ -398,7 +406,7 @@ def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Conf
         The batch's flagged rows, tables and per-drifter values.
     """
     _install_hooks()
-    return _process(batch, config, stages, layers)
+    return _process(batch, config, stages, formats)
 
 
 # ---------------------------------------------------------------------------
@@ -608,27 +616,28 @@ def run(
 
             bar = tqdm(total=n_drifters, desc="drifters", unit="drifter", leave=False,
                        disable=None)
-        from driftloop.parallel import ordered_map
+        from driftloop.parallel import executor
 
-        for result in ordered_map(process_batch, _batches(index, raw),
-                                  args=(config, stages, export is not None),
-                                  workers=workers, scheduler=scheduler):
-            start = time.perf_counter()
-            for stage, seconds in result.timings.items():
-                timings[stage] = timings.get(stage, 0.0) + seconds
-            flagged = result.flagged
-            which = np.searchsorted(starts, flagged.index.to_numpy(), side="right") - 1
-            for c in np.unique(which):
-                by_chunk[c].append(flagged_spool.put(flagged[which == c]))
-            state.add(result, export)
-            timings["write"] = timings.get("write", 0.0) + time.perf_counter() - start
+        export_formats = tuple(export.formats) if export is not None else ()
+        with executor(workers, scheduler) as ex:
+            for result in ex.map(process_batch, _batches(index, raw),
+                                 args=(config, stages, export_formats)):
+                start = time.perf_counter()
+                for stage, seconds in result.timings.items():
+                    timings[stage] = timings.get(stage, 0.0) + seconds
+                flagged = result.flagged
+                which = np.searchsorted(starts, flagged.index.to_numpy(), side="right") - 1
+                for c in np.unique(which):
+                    by_chunk[c].append(flagged_spool.put(flagged[which == c]))
+                state.add(result, export)
+                timings["write"] = timings.get("write", 0.0) + time.perf_counter() - start
+                if bar is not None:
+                    bar.update(len(result.drifters))
             if bar is not None:
-                bar.update(len(result.drifters))
-        if bar is not None:
-            bar.close()
-        clock = time.perf_counter()
-        fixes_csv = _fixes_pass(out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS, export,
-                                max_problems, attrs)
+                bar.close()
+            clock = time.perf_counter()
+            fixes_csv = _fixes_pass(ex, out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS, export,
+                                    max_problems, attrs)
         writers.append(fixes_csv.appender)
         summary, spectra = state.finish(info, fixes_csv.rows)
         if check is not None:
@@ -694,35 +703,79 @@ class _FixesPass:
     problem_count: int
 
 
-def _fixes_pass(out: Path, by_chunk, spool: _Spool, columns, export, max_problems: int,
+def render_fixes(table: pd.DataFrame, attrs: dict, columns: tuple, formats: tuple,
+                 max_problems: int) -> dict:
+    """Format one chunk of flagged fixes (in input order) for the outputs.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The chunk's flagged rows, in input order.
+    attrs : dict
+        ``attrs`` of the fixes table (kept by the GeoParquet layer).
+    columns : tuple of str
+        Columns of ``fixes.csv``.
+    formats : tuple of str
+        Export formats; empty when only QC ran.
+    max_problems : int
+        Problem rows to keep.
+
+    Returns
+    -------
+    dict
+        ``csv`` (text with header line), ``rows``, ``problems`` (the first
+        problem rows), ``problem_count`` and ``layer`` (for
+        :meth:`driftloop.export.stream.StreamExport.add_rendered`, or None).
+    """
+    from driftloop.io.writers import csv_text
+
+    table.attrs = dict(attrs)
+    mask = _problem_mask(table)
+    out = {"csv": csv_text(table.loc[:, list(columns)]), "rows": len(table),
+           "problems": table[mask].head(max_problems), "problem_count": int(mask.sum()),
+           "layer": None}
+    if formats:
+        from driftloop.export.layers import fixes_layer
+        from driftloop.export.stream import render_layer
+
+        out["layer"] = render_layer(fixes_layer(table), formats)
+    return out
+
+
+def _fixes_chunks(by_chunk, spool: _Spool) -> Iterator[pd.DataFrame]:
+    for offsets in by_chunk:
+        parts = [spool.get(o) for o in offsets]
+        table = pd.concat(parts) if len(parts) > 1 else parts[0]
+        if not table.index.is_monotonic_increasing:  # back to input order
+            table = table.sort_index()
+        yield table
+
+
+def _fixes_pass(ex, out: Path, by_chunk, spool: _Spool, columns, export, max_problems: int,
                 attrs: dict) -> _FixesPass:
     from driftloop.io.writers import CsvAppender
 
     appender = CsvAppender(out / "fixes.csv")
     problems: list[pd.DataFrame] = []
     count = kept = 0
+    formats = tuple(export.formats) if export is not None else ()
     try:
-        for offsets in by_chunk:
-            parts = [spool.get(o) for o in offsets]
-            table = pd.concat(parts) if len(parts) > 1 else parts[0]
-            if not table.index.is_monotonic_increasing:  # back to input order
-                table = table.sort_index()
-            table.attrs = dict(attrs)
-            appender.append(table.loc[:, list(columns)])
-            mask = _problem_mask(table)
-            count += int(mask.sum())
-            if kept < max_problems and mask.any():
-                head = table[mask].head(max_problems - kept)
+        for done in ex.map(render_fixes, _fixes_chunks(by_chunk, spool),
+                           args=(attrs, tuple(columns), formats, max_problems)):
+            appender.append_text(done["csv"], done["rows"])
+            count += done["problem_count"]
+            if kept < max_problems and len(done["problems"]):
+                head = done["problems"].head(max_problems - kept)
                 problems.append(head)
                 kept += len(head)
-            if export is not None:
-                from driftloop.export.layers import fixes_layer
-
-                export.add_layer("fixes", fixes_layer(table.reset_index(drop=True)))
+            elif not problems:
+                problems.append(done["problems"].iloc[:0])
+            if done["layer"] is not None:
+                export.add_rendered("fixes", done["layer"])
     except BaseException:
         appender.abort()
         raise
-    bad = pd.concat(problems) if problems else table.iloc[:0]
+    bad = pd.concat(problems) if len(problems) > 1 else problems[0]
     return _FixesPass(appender, appender.rows, bad, count)
 
 
@@ -822,10 +875,10 @@ class _ReleaseState:
                 self.trajectories.append((d, int(s_), int(n)))
             self.obs.append(result.obs)
         if export is not None:
-            export.add_table("tracks", track)
-            export.add_table("events", events)
-            for name, layer in result.layers.items():
-                export.add_layer(name, layer)
+            for name, (text, rows, empty) in result.tables.items():
+                export.add_table_text(name, text, rows, empty)
+            for name, rendered in result.layers.items():
+                export.add_rendered(name, rendered)
 
     def finish(self, inputs: list[dict], rows_out: int) -> tuple[dict, pd.DataFrame | None]:
         summary = self.summary.finish(inputs, rows_out)

@@ -54,6 +54,7 @@ __all__ = [
     "FULL_CIRCLE_GAP_DEG",
     "BboxAccumulator",
     "GeoJSONWriter",
+    "feature_text",
     "conform_geometries",
     "conform_geometry",
     "geojson_bbox",
@@ -305,8 +306,17 @@ class BboxAccumulator:
         geoms : iterable of shapely geometry or None
             As :func:`geojson_bbox` takes them.
         """
-        box = _boxes(geoms)
-        if box is None:
+        self.add_boxes(_boxes(geoms))
+
+    def add_boxes(self, box: np.ndarray | None) -> None:
+        """Add boxes ``[west, south, east, north]`` (rows of an (n, 4) array).
+
+        Parameters
+        ----------
+        box : numpy.ndarray or None
+            As :func:`feature_text` returns them; None adds nothing.
+        """
+        if box is None or len(box) == 0:
             return
         self._any = True
         self._south = min(self._south, float(box[:, 1].min()))
@@ -644,6 +654,31 @@ def _feature_lines(layer: gpd.GeoDataFrame) -> tuple[list[str], np.ndarray]:
     return lines, geoms
 
 
+def feature_text(layer: gpd.GeoDataFrame) -> tuple[str, int, np.ndarray | None]:
+    """Format the features of a layer (chunk) for :class:`GeoJSONWriter`.
+
+    Parameters
+    ----------
+    layer : geopandas.GeoDataFrame
+        As :func:`geojson_text` takes it.
+
+    Returns
+    -------
+    text : str
+        One feature per line, the lines joined by a comma and a line break.
+    count : int
+        Number of features.
+    boxes : numpy.ndarray or None
+        ``[west, south, east, north]`` of every point and part, for the
+        collection's bounding box.
+    """
+    _check_crs(layer)
+    if len(layer) == 0:
+        return "", 0, None
+    lines, geoms = _feature_lines(layer)
+    return ",\n".join(lines), len(lines), _boxes(geoms)
+
+
 class GeoJSONWriter:
     """Write a GeoJSON layer a chunk of features at a time.
 
@@ -684,14 +719,25 @@ class GeoJSONWriter:
         layer : geopandas.GeoDataFrame
             As :func:`geojson_text` takes it; every chunk has the same columns.
         """
-        if len(layer) == 0:
-            _check_crs(layer)
+        self.append_text(*feature_text(layer))
+
+    def append_text(self, text: str, count: int, boxes: np.ndarray | None) -> None:
+        """Add features already formatted by :func:`feature_text`.
+
+        Parameters
+        ----------
+        text : str
+            The feature lines, joined by a comma and a line break.
+        count : int
+            Number of features.
+        boxes : numpy.ndarray or None
+            Their boxes.
+        """
+        if not count:
             return
-        lines, geoms = _feature_lines(layer)
-        text = ",\n".join(lines)
         self._body.write((",\n" + text if self.features else text).encode("utf-8"))
-        self.features += len(lines)
-        self._box.add(geoms)
+        self.features += count
+        self._box.add_boxes(boxes)
 
     def commit(self) -> Path:
         """Write the file atomically and return its path.

@@ -45,7 +45,7 @@ from driftloop.export.geojson import GeoJSONWriter
 from driftloop.export.layers import EVENT_COLUMNS, LAYER_NAMES, TRACK_COLUMNS
 from driftloop.io.writers import AtomicFile, CsvAppender, write_json
 
-__all__ = ["PARQUET_ROW_GROUP", "StreamExport"]
+__all__ = ["PARQUET_ROW_GROUP", "StreamExport", "render_layer"]
 
 #: Rows per GeoParquet row group (the ``pyarrow.parquet.write_table`` default).
 PARQUET_ROW_GROUP = 1024 * 1024
@@ -188,6 +188,30 @@ def _concat(chunks: list[gpd.GeoDataFrame]) -> gpd.GeoDataFrame:
     return gpd.GeoDataFrame(pd.concat(chunks, ignore_index=True), crs=chunks[0].crs)
 
 
+def render_layer(layer: gpd.GeoDataFrame, formats: Sequence[str]) -> dict:
+    """Prepare a layer chunk for :meth:`StreamExport.add_rendered`.
+
+    The GeoJSON text is formatted here, so that workers can do it.
+
+    Parameters
+    ----------
+    layer : geopandas.GeoDataFrame
+        The chunk.
+    formats : sequence of str
+        The run's formats.
+
+    Returns
+    -------
+    dict
+        ``geojson``: (text, count, boxes) or None; ``frame``: the chunk when
+        a GeoPackage or GeoParquet file needs it, else None.
+    """
+    from driftloop.export.geojson import feature_text
+
+    return {"geojson": feature_text(layer) if "geojson" in formats else None,
+            "frame": layer if ("gpkg" in formats or "parquet" in formats) else None}
+
+
 class StreamExport:
     """The GIS layers and CSV tables of a run, written a chunk at a time.
 
@@ -229,7 +253,7 @@ class StreamExport:
         if "csv" in self.formats:
             self._csv = {t: CsvAppender(self.out / CSV_TABLES[t]) for t in tables}
 
-    def add_layer(self, name: str, layer: gpd.GeoDataFrame) -> None:
+    def add_layer(self, name: str, layer: gpd.GeoDataFrame, *, geojson: bool = True) -> None:
         """Append a chunk of a layer (chunks in layer order).
 
         Parameters
@@ -238,14 +262,56 @@ class StreamExport:
             Layer name.
         layer : geopandas.GeoDataFrame
             The chunk, as :func:`driftloop.export.layers.build_layers` builds it.
+        geojson : bool
+            Whether to add it to the GeoJSON file too.
         """
-        if name in self._geojson:
+        if geojson and name in self._geojson:
             self._geojson[name].append(layer)
         if name in self._spools and len(layer):
             self._spools[name].put(layer)
         elif name in self._spools and self._spools[name].count == 0:
             self._empty = getattr(self, "_empty", {})
             self._empty[name] = layer
+
+    @property
+    def needs_frames(self) -> bool:
+        """Whether layer chunks are needed as GeoDataFrames (GeoPackage, GeoParquet)."""
+        return bool(self._spools)
+
+    def add_rendered(self, name: str, rendered: dict) -> None:
+        """Append a layer chunk prepared by :func:`render_layer` (possibly in a worker).
+
+        Parameters
+        ----------
+        name : str
+            Layer name.
+        rendered : dict
+            Output of :func:`render_layer`.
+        """
+        if name in self._geojson and rendered.get("geojson") is not None:
+            self._geojson[name].append_text(*rendered["geojson"])
+        if rendered.get("frame") is not None:
+            self.add_layer(name, rendered["frame"], geojson=False)
+
+    def add_table_text(self, name: str, text: str, rows: int, empty: pd.DataFrame) -> None:
+        """Append CSV rows formatted by :func:`driftloop.io.writers.csv_text`.
+
+        Parameters
+        ----------
+        name : str
+            Table name.
+        text : str
+            The rows with their header line.
+        rows : int
+            Number of rows.
+        empty : pandas.DataFrame
+            The table's columns and dtypes (no rows), for the CSVW sidecar.
+        """
+        if name not in self._csv:
+            return
+        if name not in self._csv_first or (self._csv[name].rows == 0 and rows):
+            self._csv_first[name] = empty
+        self._csv[name].append_text(text, rows)
 
     def add_table(self, name: str, table: pd.DataFrame) -> None:
         """Append rows of a CSV table (``"tracks"`` or ``"events"``).

@@ -23,6 +23,7 @@ __all__ = [
     "CSV_CHUNK_ROWS",
     "AtomicFile",
     "CsvAppender",
+    "csv_text",
     "PART_SUFFIX",
     "atomic_open",
     "format_time",
@@ -271,6 +272,33 @@ def write_csv(path: str | Path, table: pd.DataFrame, float_digits: dict | None =
             out.to_csv(handle, index=False, header=start == 0, lineterminator="\n")
 
 
+def csv_text(table: pd.DataFrame, float_digits: dict | None = None) -> str:
+    """Format a table as :func:`write_csv` writes it, header line first.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        The table.
+    float_digits : dict, optional
+        ``{column: decimals}`` for columns to round on output.
+
+    Returns
+    -------
+    str
+        The CSV text (Unix line ends).
+    """
+    times = [n for n in table.columns if pd.api.types.is_datetime64_any_dtype(table[n].dtype)]
+    parts = []
+    for start in range(0, max(len(table), 1), CSV_CHUNK_ROWS):
+        out = table.iloc[start : start + CSV_CHUNK_ROWS].copy()
+        for name in times:
+            out[name] = format_time(out[name])
+        for name, digits in (float_digits or {}).items():
+            out[name] = out[name].round(digits)
+        parts.append(out.to_csv(None, index=False, header=start == 0, lineterminator="\n"))
+    return "".join(parts)
+
+
 class CsvAppender:
     """Write a CSV table a piece at a time, with the bytes of :func:`write_csv`.
 
@@ -296,20 +324,23 @@ class CsvAppender:
         table : pandas.DataFrame
             The rows; every call must have the same columns and dtypes.
         """
-        times = [n for n in table.columns
-                 if pd.api.types.is_datetime64_any_dtype(table[n].dtype)]
-        for start in range(0, max(len(table), 1), CSV_CHUNK_ROWS):
-            out = table.iloc[start : start + CSV_CHUNK_ROWS].copy()
-            if out.empty and self._header:
-                return
-            for name in times:
-                out[name] = format_time(out[name])
-            for name, digits in (self.float_digits or {}).items():
-                out[name] = out[name].round(digits)
-            out.to_csv(self.file.handle, index=False, header=not self._header,
-                       lineterminator="\n")
-            self._header = True
-        self.rows += len(table)
+        self.append_text(csv_text(table, self.float_digits), len(table))
+
+    def append_text(self, text: str, rows: int) -> None:
+        """Append rows already formatted by :func:`csv_text` (header line first).
+
+        Parameters
+        ----------
+        text : str
+            Output of :func:`csv_text`; its header line is dropped after the first call.
+        rows : int
+            Rows in ``text``.
+        """
+        if self._header:
+            text = text.split("\n", 1)[1]
+        self.file.handle.write(text)
+        self._header = True
+        self.rows += rows
 
     def commit(self) -> Path:
         """Rename the file into place.
