@@ -253,8 +253,10 @@ def _pieces_of_segment(seg: pd.DataFrame, wavelet: WaveletConfig) -> list[_Piece
         return []
     dt_s = float(np.median(np.diff(times))) / 1e9
     z = seg["u"].to_numpy(dtype=float) + 1j * seg["v"].to_numpy(dtype=float)
-    result = detect(z, dt_s, wavelet)
     lat = seg["lat"].to_numpy(dtype=float)
+    # the inertial and tidal bands of the segment's mean latitude stay out of the
+    # background fit of the significance test
+    result = detect(z, dt_s, wavelet, latitude=float(np.mean(lat)))
     lon = seg["lon"].to_numpy(dtype=float)
     pieces = []
     residual_cache: dict[int, np.ndarray] = {}

@@ -652,14 +652,15 @@ def candidate_ridges(tr: RotaryTransform, config: WaveletConfig | None = None,
 
 def _segment_candidates(z: np.ndarray, dt_s: float, config: WaveletConfig, *,
                         keep_transform: bool = False, background=None,
-                        calibrating: bool = False):
+                        calibrating: bool = False, exclude: tuple = ()):
     """Transform one segment and find its candidate ridges, one block of scales at a time.
 
     Each block of the transform is searched for ridge points while it is
     still in the processor cache (:func:`driftloop.wavelet.inverse_blocks`);
     the result is the same as :func:`candidate_ridges` on the stored
     transform.  Unless ``keep_transform``, the transform lives in a
-    per-thread buffer that the next call overwrites.
+    per-thread buffer that the next call overwrites.  ``exclude``: bands
+    (rad/s) left out of the background fit.
 
     Returns
     -------
@@ -679,9 +680,9 @@ def _segment_candidates(z: np.ndarray, dt_s: float, config: WaveletConfig, *,
     var = None
     if config.significance and n_p >= 3:
         if not calibrating:  # the calibration runs this function: let it use the buffers first
-            sig.calibrate(config)
+            sig.calibrate(config, sig._per_sample(exclude, dt_s))
         if background is None:
-            background = sig.fit_background(tr)
+            background = sig.fit_background(tr, exclude)
         var = sig.noise_variance(background, tr)
     if n_p < 3 or n == 0:
         for _ in wavelet.inverse_blocks(plan, halves, out, config.fft_workers):
@@ -701,7 +702,7 @@ def _segment_candidates(z: np.ndarray, dt_s: float, config: WaveletConfig, *,
 
 
 def find_ridges(transform: RotaryTransform, config: WaveletConfig | None = None,
-                background=None) -> list[Ridge]:
+                background=None, *, latitude: float | None = None) -> list[Ridge]:
     """Find the wavelet ridges of a rotary transform.
 
     Parameters
@@ -717,6 +718,11 @@ def find_ridges(transform: RotaryTransform, config: WaveletConfig | None = None,
         transform's own rotary periodogram if omitted
         (:func:`driftloop.significance.fit_background`).  Ignored when
         ``config.significance`` is false.
+    latitude : float, optional
+        Mean latitude of the segment (degrees).  If given, the bands around
+        the inertial frequency and the main tidal constituents are left out
+        of the background fit and of its calibration
+        (:func:`driftloop.significance.excluded_bands`); if omitted, none is.
 
     Returns
     -------
@@ -740,18 +746,19 @@ def find_ridges(transform: RotaryTransform, config: WaveletConfig | None = None,
                                      periods_per_octave=wc.periods_per_octave,
                                      min_period_samples=wc.min_period_samples)
     var = None
+    exclude = sig.excluded_bands(latitude, transform.dt_s)
     if config.significance and transform.w_ccw.shape[0] >= 3:
         if background is None:
-            background = sig.fit_background(transform)
+            background = sig.fit_background(transform, exclude)
         var = sig.noise_variance(background, transform)
     cand = candidate_ridges(transform, config, var)
     if cand is None:
         return []
-    return _ridges(cand, transform, _both_senses(transform), config, var is not None)
+    return _ridges(cand, transform, _both_senses(transform), config, var is not None, exclude)
 
 
 def _ridges(cand: Candidates, transform: RotaryTransform, both: np.ndarray,
-            config: WaveletConfig, tested: bool) -> list[Ridge]:
+            config: WaveletConfig, tested: bool, exclude: tuple = ()) -> list[Ridge]:
     """Significance test of the candidates, then the estimates along the ridges kept."""
     from driftloop import significance as sig
 
@@ -760,7 +767,8 @@ def _ridges(cand: Candidates, transform: RotaryTransform, both: np.ndarray,
     keep = np.ones(len(cand.cycles), dtype=bool)
     thresholds = np.full(len(cand.cycles), math.nan)
     if tested:
-        thresholds = sig.statistic_threshold(transform, sig.chain_periods(cand, wc), config)
+        thresholds = sig.statistic_threshold(transform, sig.chain_periods(cand, wc), config,
+                                             exclude)
         keep = cand.statistic >= thresholds
     if not np.any(keep):
         return []
@@ -821,7 +829,7 @@ class RidgeResult(NamedTuple):
 
 
 def detect(z: np.ndarray, dt_s: float, config: WaveletConfig | None = None, *,
-           keep_transform: bool = False) -> RidgeResult:
+           keep_transform: bool = False, latitude: float | None = None) -> RidgeResult:
     """Transform one segment and find its significant ridges.
 
     Parameters
@@ -834,6 +842,9 @@ def detect(z: np.ndarray, dt_s: float, config: WaveletConfig | None = None, *,
         Parameters; defaults if omitted.
     keep_transform : bool, optional
         Whether to return the transform (scale x time arrays) as well.
+    latitude : float, optional
+        Mean latitude of the segment (degrees): leave the inertial and tidal
+        bands out of the background fit, as in :func:`find_ridges`.
 
     Returns
     -------
@@ -855,10 +866,14 @@ def detect(z: np.ndarray, dt_s: float, config: WaveletConfig | None = None, *,
     >>> print(r.sense_name, f"{r.mean_period_s / 3600:.2f} h {r.mean_radius_m:.0f} m")
     cw 16.90 h 2421 m
     """
+    from driftloop import significance as sig
+
     config = config or WaveletConfig()
+    exclude = sig.excluded_bands(latitude, dt_s)
     tr, both, background, var, cand = _segment_candidates(z, dt_s, config,
-                                                          keep_transform=keep_transform)
-    ridges = [] if cand is None else _ridges(cand, tr, both, config, var is not None)
+                                                          keep_transform=keep_transform,
+                                                          exclude=exclude)
+    ridges = [] if cand is None else _ridges(cand, tr, both, config, var is not None, exclude)
     return RidgeResult(ridges, background, tr.periods_s, tr if keep_transform else None)
 
 

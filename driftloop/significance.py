@@ -22,7 +22,12 @@ Method
    trigamma(m) (*derived*); the fit removes the bias and weights by the
    variance.  Peaks are excluded iteratively: bins more than three standard
    deviations above the fit are dropped and the fit repeated.  The fit is
-   held constant beyond its first and last knot.
+   held constant beyond its first and last knot.  Given the segment's
+   latitude, bands around the inertial frequency (0.67-1.5 |f|, both senses:
+   near-inertial frequencies are shifted by vorticity, Kunze 1985, and
+   decaying ringing has broad skirts) and the M2, S2, K1 and O1 tides
+   (:func:`excluded_bands`) are left out of the fit, and the background
+   across them is the straight line in log-log space between the band edges.
 
 2. **Noise level per scale** (*derived*).  For Gaussian noise with spectral
    density S the rotary transform W+(t, s) = W[z]/2 is a sum of Fourier
@@ -63,12 +68,18 @@ Method
    of the wavelet, ridge and significance modules and the NumPy and SciPy
    versions, so that a change to any of them simulates afresh.
    ``tests/test_significance.py`` checks the resulting rate on white and
-   red noise.
+   red noise.  With bands left out the calibration leaves out the same bands
+   (in rad per sample) and keeps ridges near them (mean period within
+   ``EXCLUDED_MARGIN`` of a band) as a band of their own, so the budget holds
+   there too.
 
 References
 ----------
 Gonella, J., 1972: A rotary-component method for analysing meteorological
 and oceanographic vector time series.  Deep-Sea Res., 19, 833-846.
+
+Kunze, E., 1985: Near-inertial wave propagation in geostrophic shear.
+J. Phys. Oceanogr., 15, 544-565 (from memory).
 
 Lilly, J. M., and P. Perez-Brunius, 2021: Extracting statistically
 significant eddy signals from large Lagrangian datasets using wavelet ridge
@@ -92,6 +103,7 @@ import numpy as np
 from scipy.signal import lfilter
 from scipy.special import digamma, polygamma
 
+from driftloop.constants import EARTH_ROTATION_RATE_RAD_S, TIDAL_PERIODS_H
 from driftloop.wavelet import RotaryTransform, WaveletConfig, wavelet_table
 
 __all__ = [
@@ -99,6 +111,7 @@ __all__ = [
     "RotaryBackground",
     "analysed_area",
     "calibrate",
+    "excluded_bands",
     "fit_background",
     "noise_variance",
     "statistic_threshold",
@@ -122,6 +135,25 @@ CALIBRATION_AR = (0.0, 0.7, 0.8, 0.9)
 CALIBRATION_BANDS = 3
 CALIBRATION_MAX_PERIOD = 80.0
 CALIBRATION_SEED = 20210401
+#: Band left out of the background fit around the local inertial frequency
+#: |f|, as fractions of |f| (Kunze 1985: near-inertial frequencies are shifted
+#: by half the relative vorticity, a few tenths of f in eddies).
+INERTIAL_BAND = (0.67, 1.5)
+#: Within this many degrees of the equator no inertial band is left out.
+INERTIAL_MIN_LATITUDE = 5.0
+#: Band left out around each tidal constituent (fractions of its frequency).
+TIDAL_BAND = (0.95, 1.05)
+#: Grid of the left-out bands: the inertial frequency is rounded to 1/8
+#: octave and every band edge outwards to 1/32 octave of the sampling
+#: frequency, so segments share a few calibrations.
+INERTIAL_GRID_OCTAVES = 0.125
+EDGE_GRID_OCTAVES = 1.0 / 32.0
+#: Ridges of mean period within this factor of a left-out band form their
+#: own calibration band (the background is interpolated there).
+EXCLUDED_MARGIN = math.sqrt(2.0)
+#: Longest period the calibration simulates when bands are left out
+#: (sample intervals; the calibration records are ``CALIBRATION_LENGTH`` long).
+CALIBRATION_MAX_EXCLUDED_PERIOD = 512.0
 
 
 class RotaryBackground(NamedTuple):
@@ -166,6 +198,53 @@ class RotaryBackground(NamedTuple):
 _TINY = 1e-300
 
 
+def excluded_bands(latitude: float | None, dt_s: float) -> tuple:
+    """Return the frequency bands left out of the background fit at a latitude.
+
+    Parameters
+    ----------
+    latitude : float or None
+        Mean latitude of the segment (degrees); ``None`` leaves nothing out.
+    dt_s : float
+        Sample interval (s).
+
+    Returns
+    -------
+    tuple of (float, float)
+        Disjoint, increasing (omega_lo, omega_hi) ranges of |omega| (rad/s),
+        both rotary senses: ``INERTIAL_BAND`` times |f| = 2 Omega |sin lat|
+        (none within ``INERTIAL_MIN_LATITUDE`` of the equator) and
+        ``TIDAL_BAND`` times the M2, S2, K1 and O1 frequencies; |f| is rounded
+        to ``INERTIAL_GRID_OCTAVES`` and the edges outwards to
+        ``EDGE_GRID_OCTAVES`` of the sampling frequency, so that nearby
+        latitudes share a calibration.  Bands above the Nyquist frequency are
+        dropped.
+    """
+    if latitude is None or not math.isfinite(float(latitude)):
+        return ()
+    dt_s = float(dt_s)
+    raw = []  # in rad per sample
+    if abs(float(latitude)) >= INERTIAL_MIN_LATITUDE:
+        f = 2.0 * EARTH_ROTATION_RATE_RAD_S * abs(math.sin(math.radians(float(latitude)))) * dt_s
+        step = INERTIAL_GRID_OCTAVES
+        f = 2.0 ** (step * round(math.log2(f) / step))
+        raw.append((f * INERTIAL_BAND[0], f * INERTIAL_BAND[1]))
+    for hours in TIDAL_PERIODS_H.values():
+        w = 2.0 * math.pi * dt_s / (hours * 3600.0)
+        raw.append((w * TIDAL_BAND[0], w * TIDAL_BAND[1]))
+    g = EDGE_GRID_OCTAVES
+    snapped = sorted((2.0 ** (g * math.floor(math.log2(lo) / g + 1e-9)),
+                      2.0 ** (g * math.ceil(math.log2(hi) / g - 1e-9)))
+                     for lo, hi in raw if lo < math.pi)
+    merged: list[list[float]] = []
+    for lo, hi in snapped:
+        if merged and lo <= merged[-1][1]:
+            merged[-1][1] = max(merged[-1][1], hi)
+        else:
+            merged.append([lo, hi])
+    return tuple((lo / dt_s, hi / dt_s) for lo, hi in merged)
+
+
 def _hat_basis(x: np.ndarray, knots: np.ndarray) -> np.ndarray:
     """Linear-interpolation (hat function) basis at x, shape (len(x), len(knots))."""
     eye = np.eye(len(knots))
@@ -188,7 +267,7 @@ class _Binning(NamedTuple):
 
 
 @functools.lru_cache(maxsize=32)
-def _binning(n: int, n_fft: int, dt: float) -> _Binning:
+def _binning(n: int, n_fft: int, dt: float, exclude: tuple = ()) -> _Binning:
     half = (n_fft + 1) // 2
     omega = 2.0 * np.pi * np.arange(1, half) / (n_fft * dt)
     x_lo = math.log(2.0 * 2.0 * math.pi / (n * dt))
@@ -201,6 +280,8 @@ def _binning(n: int, n_fft: int, dt: float) -> _Binning:
     knots = np.linspace(x_lo, x_hi, n_knots)
     which = np.digitize(np.log(omega), edges) - 1
     which[(which < 0) | (which >= len(edges) - 1)] = -1
+    for lo, hi in exclude:
+        which[(omega >= lo) & (omega <= hi)] = -1
     counts = np.bincount(which[which >= 0], minlength=len(edges) - 1).astype(float)
     centres = 0.5 * (edges[:-1] + edges[1:])
     have = counts > 0
@@ -237,13 +318,19 @@ def _fit(y: np.ndarray, b: _Binning) -> np.ndarray:
     return coef
 
 
-def fit_background(transform: RotaryTransform) -> RotaryBackground:
+def fit_background(transform: RotaryTransform, exclude: tuple = ()) -> RotaryBackground:
     """Fit the smooth red background of each rotary sense of a segment.
 
     Parameters
     ----------
     transform : RotaryTransform
         Carries the segment's rotary periodogram.
+    exclude : tuple of (float, float), optional
+        Ranges of |omega| (rad/s) whose periodogram values the fit leaves out
+        in both senses (:func:`excluded_bands`); across each the background
+        is the straight line in ln S against ln |omega| between the fit at
+        the band edges (held constant where a band reaches past the first or
+        last knot).
 
     Returns
     -------
@@ -254,7 +341,44 @@ def fit_background(transform: RotaryTransform) -> RotaryBackground:
     -----
     Method in the module docstring (:mod:`driftloop.significance`).
     """
-    b = _binning(transform.n_samples, transform.n_fft, float(transform.dt_s))
+    exclude = tuple((float(lo), float(hi)) for lo, hi in exclude)
+    fit = _fit_background(transform, exclude)
+    return _bridge(fit, exclude) if exclude else fit
+
+
+def _bridge(fit: RotaryBackground, exclude: tuple) -> RotaryBackground:
+    """Replace the fit inside the left-out bands by straight lines in log-log space."""
+    knots, dens = fit.knots, fit.log_density
+    first, last = knots[0], knots[-1]
+    gaps = [(max(math.log(lo), first), min(math.log(hi), last)) for lo, hi in exclude]
+    gaps = [(a, b) for a, b in gaps if a < b]
+    if not gaps:
+        return fit
+    keep = np.ones(len(knots), dtype=bool)
+    for a, b in gaps:
+        keep &= (knots <= a) | (knots >= b)
+    new_x = [knots[keep]]
+    new_y = [dens[:, keep]]
+    for a, b in gaps:
+        ya = np.array([np.interp(a, knots, d) for d in dens])
+        yb = np.array([np.interp(b, knots, d) for d in dens])
+        if a <= first:  # the band reaches past the first knot: hold the value beyond it
+            ya = yb
+        if b >= last:
+            yb = ya
+        new_x.append(np.array([a, b]))
+        new_y.append(np.stack([ya, yb], axis=1))
+    x = np.concatenate(new_x)
+    y = np.concatenate(new_y, axis=1)
+    order = np.argsort(x, kind="stable")
+    x, y = x[order], y[:, order]
+    # a band edge on a kept knot: keep one point (the bridged value)
+    dup = np.r_[np.diff(x) <= 0, False]
+    return RotaryBackground(x[~dup], y[:, ~dup])
+
+
+def _fit_background(transform: RotaryTransform, exclude: tuple) -> RotaryBackground:
+    b = _binning(transform.n_samples, transform.n_fft, float(transform.dt_s), exclude)
     log_density = np.full((2, len(b.knots)), math.log(_TINY))
     if len(b.counts) == 0:
         return RotaryBackground(b.knots, log_density)
@@ -367,34 +491,68 @@ class NoiseCalibration(NamedTuple):
         least that E per unit duration and unit analysed area of the band.
     n_records : int
         Number of simulated records per process.
+    zones : numpy.ndarray
+        (k, 2) period ranges (sample intervals) around the bands left out of
+        the background fit; ridges there form one more band, after the
+        period bands.  Empty without left-out bands.
     """
 
     band_edges: np.ndarray
     statistic: tuple
     density: tuple
     n_records: int
+    zones: np.ndarray = np.zeros((0, 2))
+
+    @property
+    def n_bands(self) -> int:
+        """Number of bands (period bands, plus one if there are zones)."""
+        return len(self.band_edges) + (1 if len(self.zones) else 0)
 
     def band(self, period_samples: np.ndarray) -> np.ndarray:
         """Return the band index of ridges of the given (geometric-mean) periods."""
-        return np.clip(np.searchsorted(self.band_edges, period_samples, side="right") - 1,
-                       0, len(self.band_edges) - 1)
+        return _band_index(np.asarray(period_samples, dtype=float), self.band_edges, self.zones)
+
+
+def _band_index(period: np.ndarray, edges: np.ndarray, zones: np.ndarray) -> np.ndarray:
+    band = np.clip(np.searchsorted(edges, period, side="right") - 1, 0, len(edges) - 1)
+    for lo, hi in zones:
+        band = np.where((period >= lo) & (period <= hi), len(edges), band)
+    return band
+
+
+def _zones(exclude: tuple) -> np.ndarray:
+    """Period ranges (samples) around left-out bands given in rad per sample."""
+    if not exclude:
+        return np.zeros((0, 2))
+    return np.array([(2.0 * math.pi / hi / EXCLUDED_MARGIN, 2.0 * math.pi / lo * EXCLUDED_MARGIN)
+                     for lo, hi in exclude])
+
+
+def _per_sample(exclude: tuple, dt_s: float) -> tuple:
+    """Left-out bands in rad per sample, rounded so that they make a stable cache key."""
+    return tuple((float(f"{lo * dt_s:.12g}"), float(f"{hi * dt_s:.12g}")) for lo, hi in exclude)
 
 
 @functools.lru_cache(maxsize=64)
-def _calibration_config(config: WaveletConfig) -> WaveletConfig:
+def _calibration_config(config: WaveletConfig, exclude: tuple = ()) -> WaveletConfig:
+    longest = CALIBRATION_MAX_PERIOD
+    if exclude:  # simulate the zones around the left-out bands and beyond them
+        zone_top = float(np.max(_zones(exclude)[:, 1]))
+        longest = min(CALIBRATION_MAX_EXCLUDED_PERIOD, max(longest, 1.5 * zone_top))
     return dataclasses.replace(config, amplitude_floor_m_s=0.0, significance=True,
-                               max_period_s=CALIBRATION_MAX_PERIOD, bias_correction=False,
+                               max_period_s=longest, bias_correction=False,
                                fft_workers=1, false_positive_rate=1.0, dtype="float64",
                                coi_factor=None, coi_edge_error=0.01)
 
 
-def _band_areas(transform: RotaryTransform, edges: np.ndarray) -> np.ndarray:
+def _band_areas(transform: RotaryTransform, edges: np.ndarray, zones: np.ndarray,
+                n_bands: int) -> np.ndarray:
     n = transform.n_samples
     per = transform.periods_s[1:-1] / transform.dt_s
     inner = np.maximum(n - 2 * transform.coi[1:-1], 0) / n
     inner = inner * 2.0 * math.log(2.0) / transform.config.periods_per_octave
-    band = np.clip(np.searchsorted(edges, per, side="right") - 1, 0, len(edges) - 1)
-    return np.bincount(band, weights=inner, minlength=len(edges))
+    band = _band_index(per, edges, zones)
+    return np.bincount(band, weights=inner, minlength=n_bands)
 
 
 def chain_periods(cand, config: WaveletConfig) -> np.ndarray:
@@ -424,18 +582,18 @@ def _noise_record(rng: np.random.Generator, ar: float) -> np.ndarray:
     return z
 
 
-@functools.lru_cache(maxsize=8)
-def _calibrate(config: WaveletConfig) -> NoiseCalibration:
-    path = _calibration_file(config)
+@functools.lru_cache(maxsize=32)
+def _calibrate(config: WaveletConfig, exclude: tuple = ()) -> NoiseCalibration:
+    path = _calibration_file(config, exclude)
     cal = _read_calibration(path) if path is not None else None
     if cal is None:
-        cal = _simulate(config)
+        cal = _simulate(config, exclude)
         if path is not None:
             _write_calibration(path, cal)
     return cal
 
 
-def _calibration_file(config: WaveletConfig) -> Path | None:
+def _calibration_file(config: WaveletConfig, exclude: tuple = ()) -> Path | None:
     """Cache file of a calibration, named by everything that can change its result."""
     import scipy
 
@@ -451,6 +609,8 @@ def _calibration_file(config: WaveletConfig) -> Path | None:
     digest.update(repr((config, CALIBRATION_RECORDS, CALIBRATION_LENGTH, CALIBRATION_AR,
                         CALIBRATION_BANDS, CALIBRATION_MAX_PERIOD, CALIBRATION_SEED,
                         np.__version__, scipy.__version__)).encode())
+    if exclude:
+        digest.update(repr((exclude, EXCLUDED_MARGIN)).encode())
     return cache_dir() / f"ridge_noise_calibration_{digest.hexdigest()[:24]}.npz"
 
 
@@ -460,7 +620,8 @@ def _read_calibration(path: Path) -> NoiseCalibration | None:
             count = int(f["count"])
             stats = tuple(f[f"statistic_{i}"] for i in range(count))
             dens = tuple(f[f"density_{i}"] for i in range(count))
-            return NoiseCalibration(f["band_edges"], stats, dens, int(f["n_records"]))
+            zones = f["zones"] if "zones" in f.files else np.zeros((0, 2))
+            return NoiseCalibration(f["band_edges"], stats, dens, int(f["n_records"]), zones)
     except (OSError, KeyError, ValueError, EOFError, zipfile.BadZipFile):
         return None
 
@@ -468,7 +629,7 @@ def _read_calibration(path: Path) -> NoiseCalibration | None:
 def _write_calibration(path: Path, cal: NoiseCalibration) -> None:
     """Store a calibration atomically; a folder that cannot be written is not an error."""
     arrays = {"band_edges": cal.band_edges, "count": np.array(len(cal.statistic)),
-              "n_records": np.array(cal.n_records)}
+              "n_records": np.array(cal.n_records), "zones": np.asarray(cal.zones)}
     for i, (stat, dens) in enumerate(zip(cal.statistic, cal.density, strict=True)):
         arrays[f"statistic_{i}"] = stat
         arrays[f"density_{i}"] = dens
@@ -486,37 +647,38 @@ def _write_calibration(path: Path, cal: NoiseCalibration) -> None:
         Path(tmp).unlink(missing_ok=True)
 
 
-def _simulate(config: WaveletConfig) -> NoiseCalibration:
+def _simulate(config: WaveletConfig, exclude: tuple = ()) -> NoiseCalibration:
     from driftloop.ridges import _segment_candidates
 
     t_min = config.min_period_samples
     edges = np.r_[0.0, t_min * 2.0 ** np.arange(1, CALIBRATION_BANDS)]
+    zones = _zones(exclude)
+    n_bands = len(edges) + (1 if len(zones) else 0)
     rng = np.random.default_rng(CALIBRATION_SEED)
     out_s, out_d = [], []
     for ar in CALIBRATION_AR:
         stats, durations, bands = [], [], []
-        area = np.zeros(len(edges))
+        area = np.zeros(n_bands)
         for _ in range(CALIBRATION_RECORDS):
             tr, _, _, _, cand = _segment_candidates(_noise_record(rng, ar), 1.0, config,
-                                                    calibrating=True)
-            area += _band_areas(tr, edges) * CALIBRATION_LENGTH
+                                                    calibrating=True, exclude=exclude)
+            area += _band_areas(tr, edges, zones, n_bands) * CALIBRATION_LENGTH
             if cand is not None:
                 stats.append(cand.statistic)
                 durations.append(np.diff(cand.starts).astype(float))
-                bands.append(np.clip(np.searchsorted(edges, chain_periods(cand, config),
-                                                     side="right") - 1, 0, len(edges) - 1))
+                bands.append(_band_index(chain_periods(cand, config), edges, zones))
         stat = np.concatenate(stats) if stats else np.zeros(0)
         dur = np.concatenate(durations) if durations else np.zeros(0)
         band = np.concatenate(bands) if bands else np.zeros(0, dtype=int)
-        for b in range(len(edges)):
+        for b in range(n_bands):
             sel = band == b
             order = np.argsort(-stat[sel], kind="stable")
             out_s.append(stat[sel][order])
             out_d.append(np.cumsum(dur[sel][order]) / max(area[b], 1.0))
-    return NoiseCalibration(edges, tuple(out_s), tuple(out_d), CALIBRATION_RECORDS)
+    return NoiseCalibration(edges, tuple(out_s), tuple(out_d), CALIBRATION_RECORDS, zones)
 
 
-def calibrate(config: WaveletConfig) -> NoiseCalibration:
+def calibrate(config: WaveletConfig, exclude: tuple = ()) -> NoiseCalibration:
     """Return the noise-ridge calibration for a configuration (cached).
 
     Parameters
@@ -526,6 +688,13 @@ def calibrate(config: WaveletConfig) -> NoiseCalibration:
         bias correction, workers, rate, dtype and cone of influence do not
         matter (the last two hardly change the noise-ridge density per unit
         analysed area) and are set to fixed values.
+    exclude : tuple of (float, float), optional
+        Bands left out of the background fit, in rad per sample interval
+        (:func:`excluded_bands` times the sample interval): the simulation
+        leaves out the same bands, reaches periods up to 1.5 times the
+        longest zone (at most ``CALIBRATION_MAX_EXCLUDED_PERIOD``) and keeps
+        the ridges of the zones around the bands (within ``EXCLUDED_MARGIN``
+        of their period range) as a band of their own.
 
     Returns
     -------
@@ -538,7 +707,8 @@ def calibrate(config: WaveletConfig) -> NoiseCalibration:
         Nyquist frequency cuts the wavelet, and all longer periods, where
         the normalised noise is scale-free.
     """
-    return _calibrate(_calibration_config(config))
+    exclude = tuple(exclude)
+    return _calibrate(_calibration_config(config, exclude), exclude)
 
 
 def threshold_for_density(statistic: np.ndarray, density: np.ndarray, target: float) -> float:
@@ -571,7 +741,7 @@ def threshold_for_density(statistic: np.ndarray, density: np.ndarray, target: fl
 
 
 def statistic_threshold(transform: RotaryTransform, period_samples: np.ndarray,
-                        config: WaveletConfig | None = None) -> np.ndarray:
+                        config: WaveletConfig | None = None, exclude: tuple = ()) -> np.ndarray:
     """Return the ridge-statistic thresholds for a segment at the configured rate.
 
     Parameters
@@ -582,6 +752,9 @@ def statistic_threshold(transform: RotaryTransform, period_samples: np.ndarray,
         Geometric-mean scale period of each ridge (sample intervals).
     config : WaveletConfig, optional
         Gives ``false_positive_rate``; the transform's own if omitted.
+    exclude : tuple of (float, float), optional
+        Bands (rad/s) left out of the segment's background fit; the
+        calibration leaves out the same ones.
 
     Returns
     -------
@@ -597,16 +770,17 @@ def statistic_threshold(transform: RotaryTransform, period_samples: np.ndarray,
     area = analysed_area(transform)
     if area <= 0:
         return np.full(period_samples.shape, np.inf)
-    cal = calibrate(config)
-    per_band = _band_thresholds(_calibration_config(config),
+    exclude = _per_sample(exclude, transform.dt_s)
+    cal = calibrate(config, exclude)
+    per_band = _band_thresholds(_calibration_config(config, exclude), exclude,
                                 float(config.false_positive_rate / area))
     return per_band[cal.band(period_samples)]
 
 
 @functools.lru_cache(maxsize=256)
-def _band_thresholds(config: WaveletConfig, target: float) -> np.ndarray:
-    cal = _calibrate(config)
-    n_bands = len(cal.band_edges)
+def _band_thresholds(config: WaveletConfig, exclude: tuple, target: float) -> np.ndarray:
+    cal = _calibrate(config, exclude)
+    n_bands = cal.n_bands
     per_band = np.zeros(n_bands)
     for i, (stat, dens) in enumerate(zip(cal.statistic, cal.density, strict=True)):
         b = i % n_bands

@@ -207,3 +207,22 @@ def test_ringing_inside_a_cyclonic_eddy_is_inertial_at_the_shifted_frequency():
     z_alone = 0.15 * np.exp(-1j * (f + omega) * t) + 0.05
     alone = find_events(track_from_velocity(z_alone.real, z_alone.imag, lat0, -30.0)).events
     assert (alone["kind"] != "inertial").all()
+
+
+def test_each_segment_is_tested_at_its_own_mean_latitude(monkeypatch):
+    # the significance test leaves out the inertial band of the segment's latitude
+    # (f = 2 Omega sin lat, Gill 1982), so the ridge stage gets the segment's mean latitude
+    import driftloop.loops as loops_module
+
+    seen = []
+    real = loops_module.detect
+
+    def spy(z, dt_s, config=None, **kw):
+        seen.append(kw.get("latitude"))
+        return real(z, dt_s, config, **kw)
+
+    monkeypatch.setattr(loops_module, "detect", spy)
+    a = inertial_track(40.0, days=6, segment=0)
+    b = inertial_track(-20.0, days=6, segment=1, start=T0 + pd.Timedelta(days=7))
+    find_events(pd.concat([a, b], ignore_index=True))
+    assert seen == pytest.approx([a["lat"].mean(), b["lat"].mean()])

@@ -203,3 +203,23 @@ def test_detect_searching_block_by_block_equals_the_stored_transform_path(dtype)
     tr = rotary_transform(z, HOUR, config)
     assert np.array_equal(kept.transform.w_ccw, tr.w_ccw)
     assert np.array_equal(kept.transform.w_cw, tr.w_cw)
+
+
+def test_without_a_latitude_nothing_is_left_out_of_the_background():
+    # omitting the latitude keeps the test of the plain background fit (Lilly &
+    # Perez-Brunius 2021 style); giving one leaves the inertial band out, which lowers
+    # the noise level at f under decaying inertial ringing and raises its statistic
+    rng = np.random.default_rng(3)
+    n, lat = 2000, 45.0
+    f = 2 * EARTH_ROTATION_RATE_RAD_S * math.sin(math.radians(lat))
+    t = np.arange(n) * 3600.0
+    z = 0.02 * (rng.standard_normal(n) + 1j * rng.standard_normal(n))
+    for start in range(100, n - 300, 350):
+        age = np.clip(t - start * 3600.0, 0, None)
+        z = z + (t >= start * 3600.0) * 0.08 * np.exp(-age / 259200.0 - 1j * f * age)
+    plain, same = detect(z, 3600.0), detect(z, 3600.0, latitude=None)
+    assert [r.statistic for r in plain.ridges] == [r.statistic for r in same.ridges]
+    assert np.array_equal(plain.background.log_density, same.background.log_density)
+    left = detect(z, 3600.0, latitude=lat)
+    w = np.array([-f])
+    assert left.background.density(w)[0] < plain.background.density(w)[0]

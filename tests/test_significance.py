@@ -78,11 +78,12 @@ def test_background_fit_ignores_a_spectral_peak():
     assert v1[1, j] / v0[1, j] < 1.5
 
 
-def false_positive_rate(ar, config, records=24, n=2880, seed=0):
+def false_positive_rate(ar, config, records=24, n=2880, seed=0, latitude=None):
     rng = np.random.default_rng([seed, int(ar * 100)])
     covered = 0
     for _ in range(records):
-        covered += sum(len(r.index) for r in detect(noise(rng, n, 0.1, ar), HOUR, config).ridges)
+        ridges = detect(noise(rng, n, 0.1, ar), HOUR, config, latitude=latitude).ridges
+        covered += sum(len(r.index) for r in ridges)
     return covered / (records * n)
 
 
@@ -98,6 +99,72 @@ def test_noise_gives_ridges_at_most_at_the_configured_rate(ar):
     loose = false_positive_rate(ar, WaveletConfig(amplitude_floor_m_s=0.0, significance=False),
                                 records=4)
     assert loose > 10 * config.false_positive_rate
+
+
+@pytest.mark.parametrize("ar", [0.0, 0.9])
+def test_noise_rate_stays_within_budget_with_bands_left_out(ar):
+    # the calibration leaves out the same inertial and tidal bands as the segment's fit,
+    # so the rate bound holds with them (same tolerance as above); at 45 degrees the
+    # inertial band merges with the semidiurnal one
+    config = WaveletConfig(amplitude_floor_m_s=0.0)
+    rate = false_positive_rate(ar, config, seed=3, latitude=45.0)
+    assert rate <= 1.5 * config.false_positive_rate
+
+
+def test_left_out_bands_follow_the_inertial_and_tidal_frequencies():
+    # f = 2 Omega sin(lat) (Gill 1982, sec. 9.2), tidal periods from NOAA CO-OPS speeds
+    omega = 7.2921150e-5
+    for lat in (20.0, -33.0, 70.0):
+        f = 2 * omega * abs(math.sin(math.radians(lat)))
+        bands = sig.excluded_bands(lat, HOUR)
+        lo, hi = sig.INERTIAL_BAND
+        # rounding: 1/16 octave on the frequency, 1/32 octave outwards on the edges
+        assert any(b0 <= lo * f * 2 ** (1 / 16) and b1 >= hi * f * 2 ** (-1 / 16)
+                   for b0, b1 in bands)
+        for hours in (12.4206012, 12.0, 23.9344697, 25.8193417):
+            w = 2 * math.pi / (hours * HOUR)
+            assert any(b0 <= 0.95 * w and b1 >= 1.05 * w for b0, b1 in bands)
+        assert all(b1 < a0 for (_, b1), (a0, _) in zip(bands[:-1], bands[1:], strict=True))
+    # near the equator f -> 0: only the tides are left out
+    near = sig.excluded_bands(3.0, HOUR)
+    groups = [(25.8193417, 23.9344697), (12.4206012, 12.0)]  # O1, K1 / M2, S2 (hours)
+    assert len(near) == 2
+    for (b0, b1), (slow, fast) in zip(near, groups, strict=True):
+        w0, w1 = (2 * math.pi / (h * HOUR) for h in (slow, fast))
+        assert 0.95 * w0 * 2 ** (-1 / 32) <= b0 and b1 <= 1.05 * w1 * 2 ** (1 / 32)
+    assert sig.excluded_bands(None, HOUR) == ()
+
+
+def test_background_fit_bridges_a_broad_inertial_peak():
+    # decaying inertial ringing (Lorentzian peak, decay 3 days) at 45 N on red noise: with
+    # the inertial band left out the clockwise background at f stays close to that of the
+    # noise alone, and the fit is a straight line in log-log space across the band
+    rng = np.random.default_rng(11)
+    n, lat = 2880, 45.0
+    f = 2 * 7.2921150e-5 * math.sin(math.radians(lat))
+    t = np.arange(n) * HOUR
+    base = noise(rng, n, 0.03, 0.8)
+    ring = np.zeros(n, dtype=complex)
+    for start in range(100, n - 300, 400):
+        age = np.clip(t - start * HOUR, 0, None)
+        ring += (t >= start * HOUR) * 0.15 * np.exp(-age / (3 * 86400.0) - 1j * f * age)
+    tr0 = rotary_transform(base, HOUR)
+    tr1 = rotary_transform(base + ring, HOUR)
+    bands = sig.excluded_bands(lat, HOUR)
+    v0 = sig.noise_variance(sig.fit_background(tr0), tr0)
+    plain = sig.noise_variance(sig.fit_background(tr1), tr1)
+    fit = sig.fit_background(tr1, bands)
+    left = sig.noise_variance(fit, tr1)
+    j = int(np.argmin(np.abs(tr0.periods_s - 2 * math.pi / f)))
+    assert plain[1, j] > 2 * v0[1, j]
+    assert left[1, j] / v0[1, j] < 1.5
+    lo, hi = next(b for b in bands if b[0] < f < b[1])
+    x = np.linspace(math.log(lo), math.log(hi), 7)
+    y = np.log(fit.density(-np.exp(x)))
+    assert np.allclose(np.diff(y, 2), 0.0, atol=1e-9)
+    # the same transform without bands gives the fit of the test without them
+    assert np.array_equal(sig.fit_background(tr1, ()).log_density,
+                          sig.fit_background(tr1).log_density)
 
 
 def test_threshold_rises_as_the_allowed_rate_falls():
