@@ -211,7 +211,10 @@ def decompose(track: pd.DataFrame, wavelet_config: WaveletConfig | None = None,
         osc = {k: np.zeros(z.size, dtype=complex) for k in KINDS}
         if z.size >= _MIN_SAMPLES and np.all(np.isfinite(z)):
             dt_s = float(np.median(np.diff(times))) / 1e9
-            for ridge in detect(z, dt_s, config).ridges:
+            # the same call as the loop stage (loops._pieces_of_segment), so the
+            # decomposition uses the ridges the events came from
+            lat = float(np.mean(seg["lat"].to_numpy(dtype=float)))
+            for ridge in detect(z, dt_s, config, latitude=lat).ridges:
                 idx = np.asarray(ridge.index)
                 kind = _label(int(times[idx[0]]), int(times[idx[-1]]), int(ridge.sense),
                               spans.get(str(drifter), []))

@@ -305,7 +305,8 @@ def _segment_transform(seg: pd.DataFrame, wavelet_config):
     z = seg["u"].to_numpy(dtype=float) + 1j * seg["v"].to_numpy(dtype=float)
     if not np.all(np.isfinite(z)):
         return None
-    return detect(z, dt_s, wavelet_config, keep_transform=True), dt_s
+    lat = float(np.mean(seg["lat"].to_numpy(dtype=float)))  # as the loop stage does
+    return detect(z, dt_s, wavelet_config, latitude=lat, keep_transform=True), dt_s
 
 
 def scalogram(resampled: pd.DataFrame, drifter_id: str, wavelet_config=None) -> Figure:
