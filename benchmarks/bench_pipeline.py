@@ -196,7 +196,7 @@ def main(argv: list[str] | None = None) -> None:
     if args.quick:
         sizes = {"tp": (20, 20.0), "mem": (20, 100, 10.0), "wk": (40, 20.0)}
     else:
-        sizes = {"tp": (200, 60.0), "mem": (200, 2000, 20.0), "wk": (500, 30.0)}
+        sizes = {"tp": (200, 60.0), "mem": (200, 2000, 10.0), "wk": (500, 30.0)}
     if args.drifters:
         sizes["tp"] = (args.drifters, sizes["tp"][1])
     if args.days:

@@ -39,6 +39,8 @@ class Executor:
 
     def __init__(self, client: Any = None) -> None:
         self.client = client
+        #: Worker threads (1 in this process).
+        self.threads = 1 if client is None else max(1, sum(client.nthreads().values()))
 
     def map(self, func: Callable[..., Any], items: Iterable[Any], args: tuple = ()
             ) -> Iterator[Any]:

@@ -6,6 +6,11 @@ spectra -> accounting -> writers.  Each drifter goes through QC on its own
 longest drifter and lets the stages run drifters in parallel.
 
 ``driftloop qc`` stops after QC; ``driftloop analyse`` runs every stage.
+
+:func:`analyse` holds the release in memory as tables (for notebooks and
+small releases); the command line runs the same stages drifter by drifter
+with :func:`driftloop.streaming.run`, which writes byte-identical files
+without holding the release (``docs/scaling.md``).
 """
 
 from __future__ import annotations

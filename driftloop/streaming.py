@@ -51,13 +51,16 @@ from driftloop.io import read_file
 __all__ = ["CHUNK_ROWS", "BatchResult", "StreamRun", "process_batch", "render_fixes", "run"]
 
 #: Rows of an input file handled as one chunk (fixes.csv is written a chunk at a time).
-CHUNK_ROWS = 250_000
+CHUNK_ROWS = 20_000
 
 #: Rows gathered into one batch of drifters for a worker (a drifter is never split).
 BATCH_ROWS = 50_000
 
 #: Most drifters in one batch.
 BATCH_DRIFTERS = 32
+
+#: Batches per worker thread (at least) in a parallel run, for an even load.
+IN_FLIGHT_BATCHES = 6
 
 _KINDS = ("inertial", "eddy", "tidal", "other")
 
@@ -487,7 +490,8 @@ def _read_pass(paths: Sequence[Path], config: Config, spool: _Spool):
     return index, chunks, info, row, attrs or {}
 
 
-def _batches(index: dict, spool: _Spool) -> Iterator[list[tuple[str | None, pd.DataFrame]]]:
+def _batches(index: dict, spool: _Spool, most: int = BATCH_DRIFTERS
+             ) -> Iterator[list[tuple[str | None, pd.DataFrame]]]:
     keys = sorted(k for k in index if k is not None) + ([None] if None in index else [])
     batch: list[tuple[str | None, pd.DataFrame]] = []
     rows = 0
@@ -496,7 +500,7 @@ def _batches(index: dict, spool: _Spool) -> Iterator[list[tuple[str | None, pd.D
         group = parts[0] if len(parts) == 1 else pd.concat(parts)
         batch.append((key, group))
         rows += len(group)
-        if rows >= BATCH_ROWS or len(batch) >= BATCH_DRIFTERS:
+        if rows >= BATCH_ROWS or len(batch) >= most:
             yield batch
             batch, rows = [], 0
     if batch:
@@ -620,7 +624,10 @@ def run(
 
         export_formats = tuple(export.formats) if export is not None else ()
         with executor(workers, scheduler) as ex:
-            for result in ex.map(process_batch, _batches(index, raw),
+            # enough batches to keep every worker busy to the end
+            most = BATCH_DRIFTERS if ex.threads == 1 else max(
+                1, min(BATCH_DRIFTERS, -(-n_drifters // (IN_FLIGHT_BATCHES * ex.threads))))
+            for result in ex.map(process_batch, _batches(index, raw, most),
                                  args=(config, stages, export_formats)):
                 start = time.perf_counter()
                 for stage, seconds in result.timings.items():
