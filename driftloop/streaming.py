@@ -185,11 +185,12 @@ def _install_hooks() -> None:
     def detect(z, dt_s, config=None, **kwargs):
         cache = getattr(_STATE, "cache", None)
         key = None
-        if cache is not None and not kwargs:
+        if cache is not None:
             array = np.ascontiguousarray(z)
             try:
                 key = (hashlib.blake2b(array.tobytes(), digest_size=20).digest(),
-                       array.shape, array.dtype.str, float(dt_s), config)
+                       array.shape, array.dtype.str, float(dt_s), config,
+                       tuple(sorted(kwargs.items())))
                 hash(key)
             except TypeError:
                 key = None
