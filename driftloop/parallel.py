@@ -41,6 +41,23 @@ class Executor:
         self.client = client
         #: Worker threads (1 in this process).
         self.threads = 1 if client is None else max(1, sum(client.nthreads().values()))
+        self._warming: list = []
+
+    def warm_up(self, func: Callable[..., Any], *args: Any) -> None:
+        """Run ``func(*args)`` once on every worker, without waiting for it.
+
+        Parameters
+        ----------
+        func : callable
+            A module-level function.
+        *args
+            Its arguments.
+        """
+        if self.client is None:
+            return
+        for address in self.client.scheduler_info()["workers"]:
+            self._warming.append(self.client.submit(func, *args, workers=[address],
+                                                    pure=False, allow_other_workers=False))
 
     def map(self, func: Callable[..., Any], items: Iterable[Any], args: tuple = ()
             ) -> Iterator[Any]:

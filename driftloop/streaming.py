@@ -381,6 +381,22 @@ def _later_stages(result: BatchResult, config: Config, formats: tuple, lap) -> N
     lap("layers")
 
 
+def _warm_up(config: Config) -> None:
+    """Import the stages and fill their caches with a tiny drifter (a worker's first task)."""
+    rows = pd.DataFrame({
+        "drifter_id": pd.array(["warm-up"] * 200, dtype="string"),
+        "time": pd.date_range("2024-01-01", periods=200, freq="h", tz="UTC"),
+        "lat": np.linspace(35.0, 35.2, 200), "lon": np.linspace(-50.0, -49.8, 200),
+    })
+    from driftloop.io import make_fixes
+
+    fixes = make_fixes(drifter_id=rows["drifter_id"].to_numpy(object), time=rows["time"],
+                       lat=rows["lat"].to_numpy(), lon=rows["lon"].to_numpy(),
+                       source_file="warm-up", source_row=np.arange(1, 201))
+    with contextlib.suppress(Exception):  # only a warm-up: a failure here changes nothing
+        process_batch([("warm-up", fixes)], config, "all", ("geojson", "csv"))
+
+
 def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config,
                   stages: str = "all", formats: tuple = ()) -> BatchResult:
     """Run the per-drifter stages on a batch of drifters.
@@ -596,7 +612,12 @@ def run(
     flagged_spool = _Spool(out)
     writers: list[Any] = []
     state = None
+    stack = contextlib.ExitStack()
     try:
+        from driftloop.parallel import executor
+
+        ex = stack.enter_context(executor(workers, scheduler))
+        ex.warm_up(_warm_up, config)  # the workers load driftloop while the inputs are read
         clock = time.perf_counter()
         index, chunks, info, n_rows, attrs = _read_pass([Path(p) for p in paths], config, raw)
         timings["read"] = time.perf_counter() - clock
@@ -621,31 +642,28 @@ def run(
 
             bar = tqdm(total=n_drifters, desc="drifters", unit="drifter", leave=False,
                        disable=None)
-        from driftloop.parallel import executor
-
         export_formats = tuple(export.formats) if export is not None else ()
-        with executor(workers, scheduler) as ex:
-            # enough batches to keep every worker busy to the end
-            most = BATCH_DRIFTERS if ex.threads == 1 else max(
-                1, min(BATCH_DRIFTERS, -(-n_drifters // (IN_FLIGHT_BATCHES * ex.threads))))
-            for result in ex.map(process_batch, _batches(index, raw, most),
-                                 args=(config, stages, export_formats)):
-                start = time.perf_counter()
-                for stage, seconds in result.timings.items():
-                    timings[stage] = timings.get(stage, 0.0) + seconds
-                flagged = result.flagged
-                which = np.searchsorted(starts, flagged.index.to_numpy(), side="right") - 1
-                for c in np.unique(which):
-                    by_chunk[c].append(flagged_spool.put(flagged[which == c]))
-                state.add(result, export)
-                timings["write"] = timings.get("write", 0.0) + time.perf_counter() - start
-                if bar is not None:
-                    bar.update(len(result.drifters))
+        # enough batches to keep every worker busy to the end
+        most = BATCH_DRIFTERS if ex.threads == 1 else max(
+            1, min(BATCH_DRIFTERS, -(-n_drifters // (IN_FLIGHT_BATCHES * ex.threads))))
+        for result in ex.map(process_batch, _batches(index, raw, most),
+                             args=(config, stages, export_formats)):
+            start = time.perf_counter()
+            for stage, seconds in result.timings.items():
+                timings[stage] = timings.get(stage, 0.0) + seconds
+            flagged = result.flagged
+            which = np.searchsorted(starts, flagged.index.to_numpy(), side="right") - 1
+            for c in np.unique(which):
+                by_chunk[c].append(flagged_spool.put(flagged[which == c]))
+            state.add(result, export)
+            timings["write"] = timings.get("write", 0.0) + time.perf_counter() - start
             if bar is not None:
-                bar.close()
-            clock = time.perf_counter()
-            fixes_csv = _fixes_pass(ex, out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS, export,
-                                    max_problems, attrs)
+                bar.update(len(result.drifters))
+        if bar is not None:
+            bar.close()
+        clock = time.perf_counter()
+        fixes_csv = _fixes_pass(ex, out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS, export,
+                                max_problems, attrs)
         writers.append(fixes_csv.appender)
         summary, spectra = state.finish(info, fixes_csv.rows)
         if check is not None:
@@ -687,6 +705,7 @@ def run(
                 out.rmdir()
         raise
     finally:
+        stack.close()
         raw.close()
         flagged_spool.close()
         if state is not None:
