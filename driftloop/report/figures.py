@@ -24,8 +24,6 @@ Figures
 from __future__ import annotations
 
 import math
-import os
-import tempfile
 from collections.abc import Mapping
 from pathlib import Path
 
@@ -39,7 +37,8 @@ import pandas as pd  # noqa: E402
 from matplotlib.colors import LogNorm  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 
-from driftloop.constants import EARTH_ROTATION_RATE_RAD_S  # noqa: E402
+from driftloop.io.writers import atomic_open  # noqa: E402
+from driftloop.physics import inertial_period_s  # noqa: E402
 
 __all__ = [
     "FLAG_COLOURS",
@@ -122,9 +121,7 @@ def inertial_period_h(lat: np.ndarray | float) -> np.ndarray:
     >>> print(f"{float(inertial_period_h(30.0)):.3f}")
     23.934
     """
-    s = np.abs(np.sin(np.radians(np.asarray(lat, dtype=float))))
-    with np.errstate(divide="ignore"):
-        return np.pi / (EARTH_ROTATION_RATE_RAD_S * s) / 3600.0
+    return inertial_period_s(lat) / 3600.0
 
 
 def map_aspect(lat: np.ndarray) -> float:
@@ -180,21 +177,8 @@ def save_figure(fig: Figure, path: str | Path, *, dpi: int = 100) -> Path:
     fmt = path.suffix.lower().lstrip(".")
     if fmt not in ("png", "svg"):
         raise ValueError(f"save_figure writes .png or .svg, not {path.suffix!r}")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fig.savefig(fh, format=fmt, dpi=dpi, metadata=_metadata(fmt))
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    with atomic_open(path, "wb") as fh:
+        fig.savefig(fh, format=fmt, dpi=dpi, metadata=_metadata(fmt))
     return path
 
 

@@ -16,8 +16,6 @@ import html
 import io
 import json
 import math
-import os
-import tempfile
 import warnings
 from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
@@ -25,6 +23,7 @@ from pathlib import Path
 import pandas as pd
 from matplotlib.figure import Figure
 
+from driftloop.io.writers import atomic_open
 from driftloop.notices import CAUTION
 from driftloop.report import figures as fg
 
@@ -486,18 +485,6 @@ def build_report(run_dir: str | Path, *, dpi: int = 90) -> Path:
     text = render_report(fixes, resampled, loops, spectra, summary,
                          title=f"driftloop report: {run_dir.name}", dpi=dpi, run=run)
     out = run_dir / "report.html"
-    fd, tmp = tempfile.mkstemp(prefix=".report.html.", suffix=".tmp", dir=run_dir)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, out)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    with atomic_open(out) as fh:
+        fh.write(text)
     return out
