@@ -575,11 +575,13 @@ def _drifter_rows(pieces: list[_Piece], bounds: dict[int, tuple[int, int]],
     rows = [_event_row(group, cat, dt_s, support) for group, cat, dt_s in spans]
     if not rows:
         return rows
-    first = classify(pd.DataFrame(rows), config)
-    is_eddy = (first["kind"] == "eddy").to_numpy()
+    first = _class_columns(*(np.array([r[k] for r in rows], dtype=float) for k in
+                             ("period_h", "speed_m_s", "radius_fit_km", "lat")),
+                           np.array([r["_sense"] for r in rows]), None, config)
+    is_eddy = first["kind"] == "eddy"
     # the shift f + zeta/2 is a small-Rossby-number result; with zeta at most
     # 2 omega, |zeta / f| <= 1 needs an eddy period of at least 2 T_i
-    usable = is_eddy & (first["period_ratio"] >= _KUNZE_MIN_PERIOD_RATIO).to_numpy()
+    usable = is_eddy & (first["period_ratio"] >= _KUNZE_MIN_PERIOD_RATIO)
     if not usable.any():
         return rows
     eddies = [_eddy_span(group, cat, row, bounds, wavelet)
@@ -643,23 +645,34 @@ def classify(events: pd.DataFrame, config: LoopConfig) -> pd.DataFrame:
     >>> classify(row.assign(_eddy_rate=eddy), LoopConfig())["kind"].tolist()
     ['inertial']
     """
-    out = events.copy()
-    lat = out["lat"].to_numpy(dtype=float)
-    period_h = out["period_h"].to_numpy(dtype=float)
+    columns = _class_columns(
+        events["period_h"].to_numpy(dtype=float), events["speed_m_s"].to_numpy(dtype=float),
+        events["radius_fit_km"].to_numpy(dtype=float), events["lat"].to_numpy(dtype=float),
+        events["_sense"].to_numpy(),
+        events["_eddy_rate"].to_numpy(dtype=float) if "_eddy_rate" in events else None,
+        config)
+    out = events.drop(columns=[c for c in columns if c in events])
+    added = pd.DataFrame(columns, index=events.index)
+    return pd.concat([out, added], axis=1) if len(out.columns) else added
+
+
+def _class_columns(period_h: np.ndarray, speed: np.ndarray, radius_fit_km: np.ndarray,
+                   lat: np.ndarray, sense: np.ndarray, eddy_rate: np.ndarray | None,
+                   config: LoopConfig) -> dict[str, np.ndarray]:
+    """Compute the columns that :func:`classify` adds, from the events' values as arrays."""
     t_i = inertial_period_s(lat) / 3600.0
     f_signed = coriolis_parameter(lat)
     f = np.abs(f_signed)
-    rate = (out["_eddy_rate"].to_numpy(dtype=float) if "_eddy_rate" in out
-            else np.zeros(len(out)))
+    rate = eddy_rate if eddy_rate is not None else np.zeros(lat.size)
     f_eff = f_signed + np.nan_to_num(rate)
     with np.errstate(divide="ignore", invalid="ignore"):
         t_eff = np.where(f_eff * f_signed > 0, 2.0 * np.pi / np.abs(f_eff) / 3600.0, t_i)
-        r_i = np.where(f > 0, out["speed_m_s"].to_numpy(dtype=float) / f / 1000.0, np.inf)
+        r_i = np.where(f > 0, speed / f / 1000.0, np.inf)
         period_ratio = period_h / t_i
-        radius_ratio = out["radius_fit_km"].to_numpy(dtype=float) / r_i
+        radius_ratio = radius_fit_km / r_i
     t_lo, t_hi = np.minimum(t_i, t_eff), np.maximum(t_i, t_eff)
-    spin = spin_name(out["_sense"].to_numpy(), lat)
-    tide = np.full(len(out), "", dtype=object)
+    spin = spin_name(sense, lat)
+    tide = np.full(lat.size, "", dtype=object)
     sep = config.tidal_inertial_separation
     for name, tide_h in TIDAL_PERIODS_H.items():
         near = np.abs(period_h / tide_h - 1.0) <= config.tidal_tolerance
@@ -675,14 +688,9 @@ def classify(events: pd.DataFrame, config: LoopConfig) -> pd.DataFrame:
     )
     eddy = period_ratio >= config.eddy_period_ratio_min
     kind = np.select([tide != "", inertial, eddy], ["tidal", "inertial", "eddy"], "other")
-    out["spin"] = spin
-    out["inertial_period_h"] = t_i
-    out["inertial_radius_km"] = r_i
-    out["period_ratio"] = period_ratio
-    out["radius_ratio"] = radius_ratio
-    out["tide"] = tide
-    out["kind"] = kind
-    return out
+    return {"spin": spin, "inertial_period_h": t_i, "inertial_radius_km": r_i,
+            "period_ratio": period_ratio, "radius_ratio": radius_ratio, "tide": tide,
+            "kind": kind}
 
 
 def _empty_events() -> pd.DataFrame:
