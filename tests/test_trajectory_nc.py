@@ -136,3 +136,17 @@ def test_missing_column_and_empty_table(tmp_path):
     with xr.open_dataset(path) as ds:
         assert ds.sizes["trajectory"] == 0 and ds.sizes["obs"] == 0
         assert ds.attrs["featureType"] == "trajectory"
+
+
+def test_file_gets_the_permissions_of_a_new_file_and_stale_parts_go(tmp_path):
+    # POSIX: a new file gets 0o666 less the process umask (open(2), umask(2)); the
+    # writer's private temporary file must not pass its 0o600 on to the output.
+    stale = tmp_path / ".tracks.nc.999999999.a1b2.part"  # pid above Linux's pid_max
+    stale.write_bytes(b"half a file")
+    old = os.umask(0o027)
+    try:
+        path = write_trajectories_nc(tmp_path / "tracks.nc", _table(), {})
+    finally:
+        os.umask(old)
+    assert oct(os.stat(path).st_mode & 0o777) == oct(0o640)
+    assert sorted(os.listdir(tmp_path)) == ["tracks.nc"]

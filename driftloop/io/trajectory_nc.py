@@ -35,7 +35,8 @@ The file is written to a temporary file in the destination folder and
 renamed over the target (:func:`os.replace`), as
 :func:`driftloop.io.writers.atomic_open` does for the other outputs; the
 NetCDF library needs a path rather than an open file, so the pattern is
-repeated here.
+repeated here (same temporary name ``.NAME.PID.RANDOM.part``, so that a later
+run recognises one left by a killed writer, and the permissions of a new file).
 """
 
 from __future__ import annotations
@@ -50,6 +51,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import xarray as xr
+
+from driftloop.io.writers import PART_SUFFIX, new_file_mode, remove_stale_parts
 
 __all__ = [
     "OBS_DTYPES",
@@ -253,10 +256,13 @@ def _write(path: Path, ds: xr.Dataset) -> Path:
     encoding = {name: {"_FillValue": None} for name in ds.variables}
     encoding["time"]["dtype"] = "float64"
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
+    remove_stale_parts(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{os.getpid()}.", suffix=PART_SUFFIX,
+                               dir=path.parent)
     os.close(fd)
     try:
         ds.to_netcdf(tmp, format="NETCDF4", engine="netcdf4", encoding=encoding)
+        os.chmod(tmp, new_file_mode())  # mkstemp's file is private; outputs are not
         with open(tmp, "rb") as handle:
             os.fsync(handle.fileno())
         os.replace(tmp, path)

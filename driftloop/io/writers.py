@@ -27,6 +27,7 @@ __all__ = [
     "PART_SUFFIX",
     "atomic_open",
     "format_time",
+    "new_file_mode",
     "remove_stale_parts",
     "write_csv",
     "write_json",
@@ -92,6 +93,17 @@ def _umask() -> int:
     mask = os.umask(0o022)
     os.umask(mask)
     return mask
+
+
+def new_file_mode() -> int:
+    """Return the permissions a newly created file gets here (``0o666`` less the umask).
+
+    Returns
+    -------
+    int
+        The mode bits.
+    """
+    return 0o666 & ~_umask()
 
 
 @contextlib.contextmanager
