@@ -31,14 +31,17 @@ def _iso(t: pd.Timestamp | None) -> str | None:
     return t.strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
-def _flag_counts(flags: pd.Series) -> dict[str, int]:
-    counts = flags.value_counts()
-    return {FLAG_MEANINGS[f]: int(counts.get(f, 0)) for f in _REPORTED_FLAGS}
+def _flag_counts(flags: np.ndarray) -> dict[str, int]:
+    return {FLAG_MEANINGS[f]: int(np.count_nonzero(flags == f)) for f in _REPORTED_FLAGS}
 
 
-def _reason_counts(reasons: pd.Series) -> dict[str, int]:
-    codes = reasons[reasons.str.len() > 0].str.split("|").explode()
-    counts = codes.value_counts()
+def _reason_counts(codes: np.ndarray, texts: list[str]) -> dict[str, int]:
+    """Count reason codes from factorized ``qc_reasons`` (``texts[k]`` for code ``k``)."""
+    counts: dict[str, int] = {}
+    for k, n in enumerate(np.bincount(codes, minlength=len(texts)).tolist()):
+        if n and texts[k]:
+            for code in texts[k].split("|"):
+                counts[code] = counts.get(code, 0) + n
     return {str(k): int(v) for k, v in sorted(counts.items())}
 
 
@@ -71,33 +74,63 @@ def drifter_summary(group: pd.DataFrame) -> dict:
         fixes, number of segments, rows whose time zone was assumed UTC, and
         the source files.
     """
-    good = np.sort(group.loc[group["qc_flag"] == 1, "time"].dt.tz_convert(None).to_numpy())
-    steps = np.diff(good).astype("timedelta64[ns]").astype(np.int64) / 1e9
-    first = pd.Timestamp(good[0], tz="UTC") if good.size else None
-    last = pd.Timestamp(good[-1], tz="UTC") if good.size else None
-    if steps.size:
-        k = int(np.argmax(steps))
-        largest_gap = {
-            "hours": float(steps[k] / 3600.0),
-            "start": _iso(pd.Timestamp(good[k], tz="UTC")),
-            "end": _iso(pd.Timestamp(good[k + 1], tz="UTC")),
+    return _Columns(group).drifter(0, len(group))
+
+
+class _Columns:
+    """The columns of a flagged table that the summary reads, as NumPy arrays.
+
+    Taken once per table, so that the rows of many drifters (consecutive
+    slices ``start:stop``) are summarised without pandas indexing per drifter.
+    """
+
+    def __init__(self, flagged: pd.DataFrame) -> None:
+        self.flags = flagged["qc_flag"].to_numpy()
+        self.time = flagged["time"].dt.tz_convert(None).to_numpy()
+        reasons = flagged["qc_reasons"].to_numpy(dtype=object, na_value="")
+        self.reason_codes, uniques = pd.factorize(reasons)
+        self.reason_texts = [str(u) for u in uniques]
+        self.segment = flagged["segment"].to_numpy()
+        self.assumed = flagged["time_assumed_utc"].to_numpy(dtype=np.int64, na_value=0)
+        self.file_codes, files = pd.factorize(flagged["source_file"].astype(str),
+                                              use_na_sentinel=False)
+        self.files = np.asarray(files, dtype=object)
+
+    def good_times(self, start: int, stop: int) -> np.ndarray:
+        """Return the times (UTC, tz-naive) of the flag-1 rows of a slice, in row order."""
+        return self.time[start:stop][self.flags[start:stop] == 1]
+
+    def drifter(self, start: int, stop: int) -> dict:
+        """Return the :func:`drifter_summary` entry of rows ``start:stop``."""
+        flags = self.flags[start:stop]
+        good = np.sort(self.good_times(start, stop))
+        steps = np.diff(good).astype("timedelta64[ns]").astype(np.int64) / 1e9
+        first = pd.Timestamp(good[0], tz="UTC") if good.size else None
+        last = pd.Timestamp(good[-1], tz="UTC") if good.size else None
+        if steps.size:
+            k = int(np.argmax(steps))
+            largest_gap = {
+                "hours": float(steps[k] / 3600.0),
+                "start": _iso(pd.Timestamp(good[k], tz="UTC")),
+                "end": _iso(pd.Timestamp(good[k + 1], tz="UTC")),
+            }
+        else:
+            largest_gap = {"hours": None, "start": None, "end": None}
+        segment = self.segment[start:stop]
+        files = self.files[np.unique(self.file_codes[start:stop])]
+        return {
+            "fixes": int(stop - start),
+            "by_flag": _flag_counts(flags),
+            "by_reason": _reason_counts(self.reason_codes[start:stop], self.reason_texts),
+            "first_good_fix": _iso(first),
+            "last_good_fix": _iso(last),
+            "duration_days": None if first is None else (last - first).total_seconds() / 86400.0,
+            "largest_gap": largest_gap,
+            "sampling_interval": _interval_stats(steps),
+            "segments": int(np.unique(segment[segment >= 0]).size),
+            "time_assumed_utc_rows": int(self.assumed[start:stop].sum()),
+            "source_files": sorted(files.tolist()),
         }
-    else:
-        largest_gap = {"hours": None, "start": None, "end": None}
-    segments = group.loc[group["segment"] >= 0, "segment"]
-    return {
-        "fixes": int(len(group)),
-        "by_flag": _flag_counts(group["qc_flag"]),
-        "by_reason": _reason_counts(group["qc_reasons"]),
-        "first_good_fix": _iso(first),
-        "last_good_fix": _iso(last),
-        "duration_days": None if first is None else (last - first).total_seconds() / 86400.0,
-        "largest_gap": largest_gap,
-        "sampling_interval": _interval_stats(steps),
-        "segments": int(segments.nunique()),
-        "time_assumed_utc_rows": int(group["time_assumed_utc"].sum()),
-        "source_files": sorted(group["source_file"].astype(str).unique().tolist()),
-    }
 
 
 class SummaryAccumulator:
@@ -134,19 +167,51 @@ class SummaryAccumulator:
         drifter : str or None
             Its id; rows without an id count in the release totals only.
         """
-        if drifter is not None:
-            self.drifters[drifter] = drifter_summary(flagged)
-        self.rows += len(flagged)
-        for name, count in _flag_counts(flagged["qc_flag"]).items():
-            self._flags[name] += count
-        for name, count in _reason_counts(flagged["qc_reasons"]).items():
-            self._reasons[name] = self._reasons.get(name, 0) + count
-        good = flagged.loc[flagged["qc_flag"] == 1, "time"]
-        if len(good):
-            first, last = good.min(), good.max()
-            self._first = first if self._first is None else min(self._first, first)
-            self._last = last if self._last is None else max(self._last, last)
-        self._assumed += int(flagged["time_assumed_utc"].sum())
+        self.add_drifters(flagged, [(drifter, len(flagged))])
+
+    def add_drifters(self, flagged: pd.DataFrame, drifters: Sequence[tuple[str | None, int]]
+                     ) -> None:
+        """Count the flagged rows of several drifters held one after another in a table.
+
+        The same as :meth:`add_rows` on each drifter's slice in turn, with the
+        columns taken from the table once.
+
+        Parameters
+        ----------
+        flagged : pandas.DataFrame
+            Rows from :func:`driftloop.qc.run_qc`: the rows of the first
+            drifter (in input order), then those of the second, and so on.
+        drifters : sequence of (str or None, int)
+            Each drifter's id (``None``: rows without an id) and row count,
+            in table order; the counts add up to the rows of ``flagged``.
+
+        Raises
+        ------
+        ValueError
+            If the row counts do not add up to the rows of the table.
+        """
+        if sum(count for _, count in drifters) != len(flagged):
+            raise ValueError("drifter row counts do not add up to the rows of the table")
+        columns = _Columns(flagged)
+        start = 0
+        for drifter, count in drifters:
+            stop = start + count
+            if drifter is not None:
+                self.drifters[drifter] = columns.drifter(start, stop)
+            self.rows += count
+            for name, n in _flag_counts(columns.flags[start:stop]).items():
+                self._flags[name] += n
+            reasons = _reason_counts(columns.reason_codes[start:stop], columns.reason_texts)
+            for name, n in reasons.items():
+                self._reasons[name] = self._reasons.get(name, 0) + n
+            good = columns.good_times(start, stop)
+            if good.size:
+                first = pd.Timestamp(good.min(), tz="UTC")
+                last = pd.Timestamp(good.max(), tz="UTC")
+                self._first = first if self._first is None else min(self._first, first)
+                self._last = last if self._last is None else max(self._last, last)
+            self._assumed += int(columns.assumed[start:stop].sum())
+            start = stop
 
     def merge(self, other: SummaryAccumulator) -> None:
         """Add the drifters and totals of another accumulator (added after these).
