@@ -84,7 +84,15 @@ def _wrap_lon(lon: np.ndarray) -> np.ndarray:
     return np.where(outside, (lon + 180.0) % 360.0 - 180.0, lon)
 
 
-def _wrap_array(geoms: np.ndarray) -> np.ndarray:
+def _wrap_array(geoms: Any) -> Any:
+    """Wrap the longitudes of a geometry or geometry array into [-180, 180].
+
+    Geometries whose longitudes all lie there already, and that are 2-D,
+    are returned as they are (a transform would copy them unchanged).
+    """
+    lon = shapely.get_coordinates(geoms)[:, 0]
+    if not ((lon < -180.0) | (lon > 180.0)).any() and not np.any(shapely.has_z(geoms)):
+        return geoms
     return shapely.transform(
         geoms, lambda xy: np.column_stack([_wrap_lon(xy[:, 0]), xy[:, 1]])
     )
@@ -92,13 +100,15 @@ def _wrap_array(geoms: np.ndarray) -> np.ndarray:
 
 def _crosses_antimeridian(geom: BaseGeometry) -> bool:
     """Whether consecutive vertices of any ring are more than 180° of longitude apart."""
-    polygons = geom.geoms if geom.geom_type == "MultiPolygon" else [geom]
-    for polygon in polygons:
-        for ring in (polygon.exterior, *polygon.interiors):
-            lon = np.asarray(ring.coords)[:, 0]
-            if lon.size > 1 and np.abs(np.diff(lon)).max() > 180.0:
-                return True
-    return False
+    rings = shapely.get_rings(shapely.get_parts(geom))
+    lon = shapely.get_coordinates(rings)[:, 0]
+    if lon.size < 2:
+        return False
+    step = np.abs(np.diff(lon)) > 180.0
+    # steps from the last vertex of one ring to the first of the next do not count
+    ends = np.cumsum(shapely.get_num_coordinates(rings))[:-1]
+    step[ends[(ends > 0) & (ends < lon.size)] - 1] = False
+    return bool(step.any())
 
 
 def _may_cross(line: BaseGeometry) -> bool:
@@ -239,8 +249,9 @@ def _round_geometries(geoms: np.ndarray) -> np.ndarray:
     out[~present] = None
     polygons = np.zeros(out.shape, dtype=bool)
     polygons[present] = np.isin(shapely.get_type_id(out[present]), _POLYGON_IDS)
-    for k in np.flatnonzero(polygons):
-        out[k] = _orient_polygons(out[k])
+    if polygons.any():
+        # the vectorised form of shapely.geometry.polygon.orient(sign=1.0)
+        out[polygons] = shapely.orient_polygons(out[polygons], exterior_cw=False)
     return out
 
 
@@ -403,6 +414,119 @@ def _number(value: float) -> str:
     return "0" if text in ("-0", "") else text
 
 
+#: Integer digits that :func:`_decimal_chars` lays out (|value| below 1e9).
+_INT_DIGITS = 9
+#: Characters of one number in :func:`_decimal_chars`: sign, integer digits, point, decimals.
+_WIDTH = 1 + _INT_DIGITS + 1 + COORDINATE_DECIMALS
+#: Place values of the digits of ``round(|value| * 10**COORDINATE_DECIMALS)``, largest first.
+_PLACES = 10 ** np.arange(_INT_DIGITS + COORDINATE_DECIMALS - 1, -1, -1, dtype=np.int64)
+#: Largest scaled magnitude formatted arithmetically (exact in float64, below 2**53).
+_FAST_MAX = float(10 ** (_INT_DIGITS + COORDINATE_DECIMALS) - 1)
+
+
+def _decimal_chars(values: Any) -> tuple[np.ndarray, np.ndarray] | None:
+    """Lay out the :func:`_number` texts of many values as a grid of ASCII characters.
+
+    Parameters
+    ----------
+    values : array_like of float
+        Flattened in C order.
+
+    Returns
+    -------
+    tuple of numpy.ndarray or None
+        ``chars`` (uint8, one row of :data:`_WIDTH` characters per value) and
+        ``keep`` (bool, same shape): the text of value ``i`` is
+        ``chars[i][keep[i]]``.  None when some text is longer than a row.
+
+    Notes
+    -----
+    ``format(x, ".6f")`` (Python's correctly rounded fixed-point
+    formatting) writes the integer nearest to the exact product
+    ``|x| * 10**6`` with its last six digits after the point.  That integer
+    is found here as ``rint(|x| * 1e6)`` in float64: the product is
+    rounded by at most half a unit in its last place, which cannot move it
+    across a half-integer unless its fraction lies within a few units in the
+    last place of one half.  Such values, those above :data:`_FAST_MAX`
+    after scaling, and NaN and infinities go through :func:`_number` one by
+    one.  The digits are then cut out of the integer with integer
+    arithmetic; the sign is written for a negative value whose rounded
+    magnitude is not zero, the point and decimals up to the last non-zero
+    one, as :func:`_number` strips trailing zeros and writes ``-0`` as
+    ``0``.
+    """
+    v = np.asarray(values, dtype=float).ravel()
+    with np.errstate(invalid="ignore", over="ignore"):
+        scaled = np.abs(v) * 10.0**COORDINATE_DECIMALS
+        frac = scaled - np.floor(scaled)
+        fast = (scaled <= _FAST_MAX) & (
+            np.abs(frac - 0.5) > 4.0 * np.spacing(scaled) + 1e-9
+        )
+    units = np.rint(np.where(fast, scaled, 0.0)).astype(np.int64)
+    digits = (units[:, None] // _PLACES) % 10
+    point = 1 + _INT_DIGITS
+    chars = np.empty((v.size, _WIDTH), dtype=np.uint8)
+    chars[:, 0] = ord("-")
+    chars[:, 1:point] = digits[:, :_INT_DIGITS] + ord("0")
+    chars[:, point] = ord(".")
+    chars[:, point + 1:] = digits[:, _INT_DIGITS:] + ord("0")
+    keep = np.empty((v.size, _WIDTH), dtype=bool)
+    keep[:, 0] = (v < 0.0) & (units > 0)
+    keep[:, 1:point] = units[:, None] >= _PLACES[:_INT_DIGITS]
+    keep[:, point - 1] = True  # the units digit
+    decimals = units % _PLACES[_INT_DIGITS - 1]
+    keep[:, point] = decimals != 0
+    keep[:, point + 1:] = (decimals[:, None] % (10 * _PLACES[_INT_DIGITS:])) != 0
+    columns = np.arange(_WIDTH)
+    for i in np.flatnonzero(~fast):
+        text = _number(float(v[i])).encode("ascii")
+        if len(text) > _WIDTH:
+            return None
+        chars[i, : len(text)] = np.frombuffer(text, dtype=np.uint8)
+        keep[i] = columns < len(text)
+    return chars, keep
+
+
+def _number_texts(values: Any) -> list[str]:
+    """:func:`_number` of every value (flattened in C order), formatted together."""
+    grid = _decimal_chars(values)
+    if grid is None:
+        return [_number(x) for x in np.asarray(values, dtype=float).ravel().tolist()]
+    chars, keep = grid
+    text = chars[keep].tobytes().decode("ascii")
+    ends = np.cumsum(keep.sum(axis=1)).tolist()
+    return [text[a:b] for a, b in zip([0, *ends][:-1], ends, strict=True)]
+
+
+def _position_runs(xy: np.ndarray) -> tuple[str, list[int]]:
+    """Text ``,[x,y]`` of every position, concatenated, and where each one ends.
+
+    The positions ``a`` to ``b - 1`` are written as a JSON array by
+    :func:`_run_text`.
+    """
+    xy = np.asarray(xy, dtype=float)[:, :2]
+    n = len(xy)
+    grid = _decimal_chars(xy) if n else None
+    if grid is None:
+        pieces = [f",[{_number(x)},{_number(y)}]" for x, y in xy.tolist()]
+        return "".join(pieces), np.cumsum([len(p) for p in pieces], dtype=np.int64).tolist()
+    chars, keep = grid
+    w = _WIDTH
+    row = np.empty((n, 2 * w + 4), dtype=np.uint8)
+    used = np.ones((n, 2 * w + 4), dtype=bool)
+    row[:, 0], row[:, 1], row[:, 2 + w], row[:, -1] = ord(","), ord("["), ord(","), ord("]")
+    row[:, 2:2 + w], used[:, 2:2 + w] = chars[0::2], keep[0::2]
+    row[:, 3 + w:3 + 2 * w], used[:, 3 + w:3 + 2 * w] = chars[1::2], keep[1::2]
+    return row[used].tobytes().decode("ascii"), np.cumsum(used.sum(axis=1)).tolist()
+
+
+def _run_text(text: str, ends: list[int], a: int, b: int) -> str:
+    """JSON array of the positions ``a`` to ``b - 1`` of :func:`_position_runs`."""
+    if b <= a:
+        return "[]"
+    return "[" + text[(ends[a - 1] if a else 0) + 1 : ends[b - 1]] + "]"
+
+
 def _positions(coords: Any) -> str:
     xy = np.asarray(coords, dtype=float)[:, :2]
     return "[" + ",".join(f"[{_number(x)},{_number(y)}]" for x, y in xy) + "]"
@@ -547,14 +671,31 @@ _VALUE_TEXT = {
 }
 
 
+def _value_texts(values: list[Any]) -> list[str]:
+    """JSON texts of one property column's values (from property_values)."""
+    kinds = set(map(type, values))
+    if len(kinds) == 1:
+        return list(map(_VALUE_TEXT[kinds.pop()], values))
+    return [_VALUE_TEXT[type(v)](v) for v in values]
+
+
 def _member_texts(name: str, values: list[Any]) -> list[str]:
     """``"name":value`` JSON texts of one property column (values from property_values)."""
     key = encode_basestring(name) + ":"
-    return [key + _VALUE_TEXT[type(v)](v) for v in values]
+    return list(map(key.__add__, _value_texts(values)))
+
+
+#: shapely type ids of the geometries :func:`_geometry_texts` writes beside points.
+_LINE_ID, _POLYGON_ID, _MULTIPOINT_ID, _MULTILINE_ID, _MULTIPOLYGON_ID = 1, 3, 4, 5, 6
 
 
 def _geometry_texts(geoms: np.ndarray) -> list[str]:
-    """Geometry object texts; points formatted in one pass over their coordinates."""
+    """Geometry object texts, as :func:`_geometry_json` writes them one by one.
+
+    The coordinates of all points, and then of all other geometries, are
+    formatted in one pass each (:func:`_position_runs`); each line, ring or
+    multi-point is then a slice of that text.
+    """
     texts = ["null"] * len(geoms)
     present = ~shapely.is_missing(geoms)
     kinds = np.full(len(geoms), -1)
@@ -562,10 +703,66 @@ def _geometry_texts(geoms: np.ndarray) -> list[str]:
     points = np.flatnonzero(kinds == 0)
     if points.size:
         xy = shapely.get_coordinates(geoms[points])
-        for k, x, y in zip(points, xy[:, 0], xy[:, 1], strict=True):
-            texts[k] = f'{{"type":"Point","coordinates":[{_number(x)},{_number(y)}]}}'
-    for k in np.flatnonzero(present & (kinds != 0)):
-        texts[k] = _geometry_json(geoms[k])
+        if len(xy) != points.size:
+            raise ValueError("cannot write an empty point")
+        text, ends = _position_runs(xy)
+        head = '{"type":"Point","coordinates":'
+        for k, a, b in zip(points.tolist(), [0, *ends][:-1], ends, strict=True):
+            texts[k] = head + text[a + 1 : b] + "}"
+    others = np.flatnonzero(present & (kinds != 0))
+    if not others.size:
+        return texts
+    shapes = geoms[others]
+    for k in np.flatnonzero(~np.isin(kinds[others], (_LINE_ID, _POLYGON_ID, _MULTIPOINT_ID,
+                                                      _MULTILINE_ID, _MULTIPOLYGON_ID))):
+        _geometry_json(shapes[k])  # raises TypeError for the unsupported type
+    text, ends = _position_runs(shapely.get_coordinates(shapes))
+    cursor = 0
+
+    def run(n: int) -> str:
+        nonlocal cursor
+        cursor += n
+        return _run_text(text, ends, cursor - n, cursor)
+
+    def rings(polygon: BaseGeometry) -> str:
+        counts = shapely.get_num_coordinates(shapely.get_rings(polygon)).tolist()
+        return "[" + ",".join([run(n) for n in counts]) + "]"
+
+    for k, geom, kind in zip(others.tolist(), shapes, kinds[others].tolist(), strict=True):
+        if kind in (_LINE_ID, _MULTIPOINT_ID):
+            coordinates = run(int(shapely.get_num_coordinates(geom)))
+        elif kind == _POLYGON_ID:
+            coordinates = rings(geom)
+        elif kind == _MULTILINE_ID:
+            counts = shapely.get_num_coordinates(shapely.get_parts(geom)).tolist()
+            coordinates = "[" + ",".join([run(n) for n in counts]) + "]"
+        else:
+            coordinates = "[" + ",".join([rings(p) for p in shapely.get_parts(geom)]) + "]"
+        texts[k] = f'{{"type":"{geom.geom_type}","coordinates":{coordinates}}}'
+    return texts
+
+
+def _bbox_texts(geoms: np.ndarray) -> list[str]:
+    """``bbox`` member texts of single conformed, rounded geometries (none missing).
+
+    Each is ``_bbox_json(geojson_bbox([geom]))``; for a geometry of one part
+    the box is that part's bounds, with the longitude range widened to the
+    whole circle by the rule of :func:`_lon_extent`, computed for all such
+    geometries at once.
+    """
+    parts, owner = shapely.get_parts(geoms, return_index=True)
+    bounds = shapely.bounds(parts).reshape(-1, 4)
+    count = np.bincount(owner, minlength=len(geoms))
+    single = np.flatnonzero(count == 1)
+    boxes = np.full((len(geoms), 4), np.nan)
+    west, south, east, north = bounds[np.searchsorted(owner, single)].T
+    full = (west + 180.0) + (180.0 - east) < FULL_CIRCLE_GAP_DEG  # as _lon_extent
+    boxes[single] = np.column_stack([np.where(full, -180.0, west), south,
+                                     np.where(full, 180.0, east), north])
+    numbers = _number_texts(boxes)
+    texts = ["[" + ",".join(numbers[4 * j : 4 * j + 4]) + "]" for j in range(len(geoms))]
+    for j in np.flatnonzero(count != 1):
+        texts[j] = _bbox_json(geojson_bbox([geoms[j]]))
     return texts
 
 
@@ -635,22 +832,19 @@ def _feature_lines(layer: gpd.GeoDataFrame) -> tuple[list[str], np.ndarray]:
     values = [property_values(layer[c]) for c in columns]
     geoms = _round_geometries(conform_geometries(layer.geometry))
     texts = _geometry_texts(geoms)
-    members = [_member_texts(str(c), v) for c, v in zip(columns, values, strict=True)]
-    if members:
-        props = ["{" + ",".join(row) + "}" for row in zip(*members, strict=True)]
-    else:
-        props = ["{}"] * len(geoms)
-    lines = [
-        f'{{"type":"Feature","properties":{p},"geometry":{g}}}'
-        for p, g in zip(props, texts, strict=True)
-    ]
+    # each line is a %-template of the member keys filled with the value texts
+    members = ",".join(encode_basestring(str(c)).replace("%", "%%") + ":%s" for c in columns)
+    columns_text = [_value_texts(v) for v in values]
+    plain = '{"type":"Feature","properties":{' + members + '},"geometry":%s}'
+    lines = [plain % row for row in zip(*columns_text, texts, strict=True)]
     present = ~shapely.is_missing(geoms)
     kinds = np.full(len(geoms), -1)
     kinds[present] = shapely.get_type_id(geoms[present])
-    for k in np.flatnonzero(present & ~np.isin(kinds, _POINT_IDS)):
-        box = _bbox_json(geojson_bbox([geoms[k]]))
-        lines[k] = (f'{{"type":"Feature","bbox":{box},"properties":{props[k]},'
-                    f'"geometry":{texts[k]}}}')
+    boxed = np.flatnonzero(present & ~np.isin(kinds, _POINT_IDS))
+    if boxed.size:
+        framed = '{"type":"Feature","bbox":%s,"properties":{' + members + '},"geometry":%s}'
+        for k, box in zip(boxed.tolist(), _bbox_texts(geoms[boxed]), strict=True):
+            lines[k] = framed % (box, *[column[k] for column in columns_text], texts[k])
     return lines, geoms
 
 
