@@ -145,7 +145,10 @@ def run_qc(fixes: pd.DataFrame, config: QCConfig | None = None) -> pd.DataFrame:
     pandas.DataFrame
         A copy of ``fixes`` (same rows, order and index) with the columns
         ``qc_flag`` (int8), ``qc_reasons`` (string) and ``segment`` (int32)
-        added or replaced.
+        added or replaced.  Each drifter is flagged on its own: a table of
+        many drifters gets the columns that its drifters get one at a time
+        (times count from each drifter's first usable fix, and the
+        iterative tests take their passes drifter by drifter).
 
     Raises
     ------
@@ -195,7 +198,11 @@ def run_qc(fixes: pd.DataFrame, config: QCConfig | None = None) -> pd.DataFrame:
     order = np.lexsort((usable, source_row[usable], source_file[usable],
                         time_ns[usable], drifter[usable]))
     rows = usable[order]  # row position of each sorted fix
-    t0 = time_ns[rows].min() if rows.size else 0
+    # seconds since each drifter's first usable fix, so that a drifter's
+    # times (and all that follows) do not depend on the other drifters
+    first = np.ones(rows.size, dtype=bool)
+    first[1:] = drifter[rows[1:]] != drifter[rows[:-1]]
+    t0 = time_ns[rows[first]][np.cumsum(first) - 1]
     track_time = (time_ns[rows] - t0) / 1e9  # s
 
     # 2. same instant: duplicates and conflicts
@@ -418,17 +425,28 @@ def _excursions(
         fast = same & (speed > threshold)
         if not fast.any():
             break
-        # first, single fixes whose removal leaves no fast leg in their place
+        # first, single fixes whose removal leaves no fast leg in their place;
+        # a drifter that has some leaves its longer excursions to a later pass
         single = _single_fix_spikes(track, act, speed, fast, same, threshold)
+        drifter = track.drifter[act]
+        busy = np.zeros(0, dtype=drifter.dtype)
         if single.size:
             removed[act[single]] = True
-            continue
+            busy = np.unique(drifter[single])
+            if np.isin(drifter[:-1][fast], busy).all():
+                continue
         cut = ~same | fast
         piece = np.concatenate(([0], np.cumsum(cut)))
         first = np.flatnonzero(np.concatenate(([True], cut)))
         last = np.concatenate((first[1:] - 1, [act.size - 1]))
         size = last - first + 1
         npiece = first.size
+        # pieces of one drifter only compete with each other: a free slot
+        # between drifters keeps their runs from touching
+        piece_drifter = drifter[first]
+        slot = np.arange(npiece) + np.concatenate(
+            ([0], np.cumsum(piece_drifter[1:] != piece_drifter[:-1])))
+        idle = ~np.isin(piece_drifter, busy)
         # the leg after piece p joins it to piece p + 1 (-> fast, same drifter?)
         after_fast = np.zeros(npiece, dtype=bool)
         after_fast[:-1] = fast[last[:-1]]
@@ -447,7 +465,7 @@ def _excursions(
             stop = start + span - 1  # last piece of the run
             total = cum[stop + 1] - cum[start]
             joined = chain[stop] - chain[start] == span - 1  # inner joins are all fast legs
-            ok = joined & (total <= max_run)
+            ok = joined & (total <= max_run) & idle[start]
             score = np.full(start.size, -np.inf)
             inner = ok & before_fast[start] & after_fast[stop]
             if inner.any():
@@ -472,26 +490,29 @@ def _excursions(
             scores.append(score[keep])
         start = np.concatenate(starts)
         if start.size == 0:
+            if single.size:
+                continue
             break
         stop = np.concatenate(stops)
         score = np.concatenate(scores)
         # the best of runs that overlap or touch wins: highest score, then fewest pieces
         rank = np.empty(start.size, dtype=np.int64)
         rank[np.lexsort((start, stop - start, -score))] = np.arange(start.size)
-        own = np.full(npiece + 2, start.size, dtype=np.int64)  # padded by one piece each side
+        at = slot[start]  # a run covers the slots at .. at + stop - start
+        own = np.full(slot[-1] + 3, start.size, dtype=np.int64)  # padded by one slot each side
         for d in range(max_run):
             inside = start + d <= stop
-            np.minimum.at(own, start[inside] + d + 1, rank[inside])
+            np.minimum.at(own, at[inside] + d + 1, rank[inside])
         best = np.full(start.size, start.size, dtype=np.int64)
         for d in range(-1, max_run + 1):
             inside = start + d <= stop + 1
-            best[inside] = np.minimum(best[inside], own[start[inside] + d + 1])
+            best[inside] = np.minimum(best[inside], own[at[inside] + d + 1])
         pick = best == rank
         cover = np.zeros(npiece + 1, dtype=np.int64)
         np.add.at(cover, start[pick], 1)
         np.add.at(cover, stop[pick] + 1, -1)
         chosen_any = np.cumsum(cover[:-1]) > 0
-        if not chosen_any.any():
+        if not chosen_any.any() and not single.size:
             break
         removed[act[chosen_any[piece]]] = True
     act = np.flatnonzero(live & ~removed)
@@ -543,6 +564,9 @@ def _single_fix_spikes(
     score[k] = speed[k - 1] - speed[k - 2]
     earlier = np.concatenate(([-np.inf], score[:-1]))
     later = np.concatenate((score[1:], [-np.inf]))
+    other = np.flatnonzero(track.drifter[act[1:]] != track.drifter[act[:-1]])
+    earlier[other + 1] = -np.inf  # neighbours are only compared within a drifter
+    later[other] = -np.inf
     return np.flatnonzero(np.isfinite(score) & (score > earlier) & (score >= later))
 
 
@@ -599,6 +623,12 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
     slots = len(offsets)
     mirror = np.array([offsets.index(-o) for o in offsets])
     leave_out = ~np.eye(slots, dtype=bool)[None, :, :]
+    # the last fit of each fix: neighbours (track indices), how solved, ratios
+    fitted = np.zeros(n, dtype=bool)
+    fitted_direct = np.zeros(n, dtype=bool)
+    fitted_nb = np.full((n, slots), -1, dtype=np.int64)
+    fitted_ratio = np.zeros(n)
+    fitted_loo = np.zeros((n, slots))
     for _ in range(_MAX_PASSES):
         act = np.flatnonzero(live & ~flagged)
         m = act.size
@@ -618,9 +648,19 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
         todo = np.flatnonzero((nb >= 0).all(axis=1))
         ratio = np.zeros(m)
         loo = np.zeros((m, slots))  # ratio with the neighbour in each slot left out
-        x, y = _local_offsets(track, act, nb, offsets, todo)
-        for start in range(0, todo.size, _CHUNK):
-            centre = todo[start : start + _CHUNK]
+        direct = _direct_offsets(track, act, todo)
+        # a fix whose neighbours and way of solving are those of its last fit
+        # keeps the ratios of that fit (they would come out the same)
+        neighbour = np.where(nb >= 0, act[np.maximum(nb, 0)], -1)
+        c = act[todo]
+        same = (fitted[c] & (fitted_direct[c] == direct[todo])
+                & (fitted_nb[c] == neighbour[todo]).all(axis=1))
+        ratio[todo[same]] = fitted_ratio[c[same]]
+        loo[todo[same]] = fitted_loo[c[same]]
+        redo = todo[~same]
+        x, y = _local_offsets(track, act, nb, offsets, redo, direct)
+        for start in range(0, redo.size, _CHUNK):
+            centre = redo[start : start + _CHUNK]
             tau_s = track.t[act[nb[centre]]] - track.t[act[centre]][:, None]
             xc, yc = x[start : start + _CHUNK], y[start : start + _CHUNK]
             full = np.ones((centre.size, slots), dtype=bool)
@@ -628,6 +668,12 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
             lo = _fit_ratio(tau_s[:, None, :], xc[:, None, :], yc[:, None, :], leave_out, config)
             ratio[centre] = np.where(np.isfinite(r), r, 0.0)
             loo[centre] = np.where(np.isfinite(lo), lo, ratio[centre][:, None])
+        c = act[redo]
+        fitted[c] = True
+        fitted_direct[c] = direct[redo]
+        fitted_nb[c] = neighbour[redo]
+        fitted_ratio[c] = ratio[redo]
+        fitted_loo[c] = loo[redo]
         if not (ratio > 1.0).any():
             break
         # blame of each fix: own ratio + how much each neighbour's ratio drops without it
@@ -649,43 +695,72 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
     return flagged
 
 
+def _direct_offsets(track: _Track, act: np.ndarray, todo: np.ndarray) -> np.ndarray:
+    """Which fixes of ``act`` :func:`_local_offsets` solves with each neighbour on its own.
+
+    Those of the drifters with fewer than half their live fixes to be done;
+    the other drifters solve each pair of neighbouring fixes once.
+    """
+    if act.size == 0:
+        return np.zeros(0, dtype=bool)
+    drifter = track.drifter[act]
+    ndrifter = int(drifter.max()) + 1
+    return (2 * np.bincount(drifter[todo], minlength=ndrifter)
+            < np.bincount(drifter, minlength=ndrifter))[drifter]
+
+
 def _local_offsets(
-    track: _Track, act: np.ndarray, nb: np.ndarray, offsets: list[int], todo: np.ndarray
+    track: _Track, act: np.ndarray, nb: np.ndarray, offsets: list[int], todo: np.ndarray,
+    direct: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray]:
     """East and north (m) of each neighbour in the azimuthal equidistant frame of its centre.
 
     Rows follow ``todo`` (indices into ``act``), columns the neighbour
-    slots.  When most fixes are to be done, each pair of fixes is solved
-    once: the inverse problem from p to q gives q about p from the azimuth
-    at p, and p about q from the forward azimuth at q turned by 180 degrees.
+    slots.  For the fixes of ``act`` marked ``direct`` (see
+    :func:`_direct_offsets`) the inverse problem is solved from the fix to
+    each neighbour.  For the others each pair of fixes is solved once: the
+    inverse problem from p to q gives q about p from the azimuth at p, and p
+    about q from the forward azimuth at q turned by 180 degrees.  All the
+    inverse problems go to one call.
     """
     x = np.zeros((todo.size, nb.shape[1]))
     y = np.zeros((todo.size, nb.shape[1]))
     if todo.size == 0:
         return x, y
-    if 2 * todo.size < act.size:
-        valid = nb[todo] >= 0
-        c = np.broadcast_to(act[todo][:, None], valid.shape)[valid]
-        q = act[nb[todo][valid]]
-        inv = geodesy.inverse(track.lon[c], track.lat[c], track.lon[q], track.lat[q])
-        az = np.radians(inv.azimuth1_deg)
-        x[valid] = inv.distance_m * np.sin(az)
-        y[valid] = inv.distance_m * np.cos(az)
-        return x, y
+    # each fix with its neighbours
+    alone = todo[direct[todo]]
+    valid = nb[alone] >= 0
+    centre = np.broadcast_to(act[alone][:, None], valid.shape)[valid]
+    ends = [(centre, act[nb[alone][valid]])]
+    # each pair once
     row = np.full(act.size, -1, dtype=np.int64)
     row[todo] = np.arange(todo.size)
+    pairs = []
     for k, o in enumerate(offsets):
         if o < 0:
             continue
-        back = offsets.index(-o)
-        p = np.flatnonzero(nb[:, k] >= 0)
+        p = np.flatnonzero((nb[:, k] >= 0) & ~direct)
         q = nb[p, k]
-        p, q = p[(row[p] >= 0) | (row[q] >= 0)], q[(row[p] >= 0) | (row[q] >= 0)]
-        inv = geodesy.inverse(track.lon[act[p]], track.lat[act[p]],
-                              track.lon[act[q]], track.lat[act[q]])
-        az1 = np.radians(inv.azimuth1_deg)
-        az2 = np.radians(inv.azimuth2_deg)
-        s = inv.distance_m
+        wanted = (row[p] >= 0) | (row[q] >= 0)
+        p, q = p[wanted], q[wanted]
+        pairs.append((k, offsets.index(-o), p, q))
+        ends.append((act[p], act[q]))
+    a = np.concatenate([e[0] for e in ends])
+    b = np.concatenate([e[1] for e in ends])
+    inv = geodesy.inverse(track.lon[a], track.lat[a], track.lon[b], track.lat[b])
+    s_all, az1_all, az2_all = inv.distance_m, inv.azimuth1_deg, inv.azimuth2_deg
+    n = centre.size
+    if n:
+        az = np.radians(az1_all[:n])
+        sub_x, sub_y = x[direct[todo]], y[direct[todo]]
+        sub_x[valid] = s_all[:n] * np.sin(az)
+        sub_y[valid] = s_all[:n] * np.cos(az)
+        x[direct[todo]], y[direct[todo]] = sub_x, sub_y
+    for k, back, p, q in pairs:
+        s = s_all[n : n + p.size]
+        az1 = np.radians(az1_all[n : n + p.size])
+        az2 = np.radians(az2_all[n : n + p.size])
+        n += p.size
         fwd = row[p] >= 0
         x[row[p[fwd]], k] = (s * np.sin(az1))[fwd]
         y[row[p[fwd]], k] = (s * np.cos(az1))[fwd]
@@ -797,9 +872,20 @@ def _grounded(track: _Track, live: np.ndarray, config: QCConfig) -> np.ndarray:
     lengths = run_stop - run_start + 1
     starts = np.repeat(run_start, lengths) + _ragged_arange(lengths)
     stops = np.repeat(run_stop, lengths)
-    # times made increasing across drifters, so that one search serves all
-    key = t + track.code[act] * (t.max() - t.min() + duration + 1.0)
-    ends = np.searchsorted(key, key[starts] + duration, side="left")
+    # per drifter, times made increasing across its stretches, so that one
+    # search serves them all
+    drifter = track.drifter[act]
+    head = np.flatnonzero(np.concatenate(([True], drifter[1:] != drifter[:-1])))
+    tail = np.concatenate((head[1:], [act.size]))
+    whose = np.cumsum(np.isin(np.arange(act.size), head)) - 1  # drifter block of each fix
+    track_head = np.searchsorted(track.drifter, drifter[head], side="left")
+    stretch = track.code[act] - track.code[track_head][whose]
+    key = t + stretch * ((t[tail - 1] - t[head])[whose] + duration + 1.0)
+    ends = np.empty(starts.size, dtype=np.int64)
+    for block in np.unique(whose[starts]).tolist():
+        lo, hi = int(head[block]), int(tail[block])
+        mine = whose[starts] == block
+        ends[mine] = lo + np.searchsorted(key[lo:hi], key[starts[mine]] + duration, side="left")
     fits = ends <= stops
     starts, ends = starts[fits], ends[fits]
     if starts.size == 0:
