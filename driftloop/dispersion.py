@@ -274,13 +274,20 @@ def _lag_sums(components: list[list[np.ndarray]], max_lag: int, block: int | Non
     return _Sums([np.concatenate(p) for p in products], np.concatenate(pairs))
 
 
-def _covariance(sums: _Sums, weights: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Covariance per lag (summed over components) and pair counts, from block sums."""
+def _covariance(sums: _Sums, weights: np.ndarray | None = None,
+                count: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Covariance per lag (summed over components) and pair counts, from block sums.
+
+    With ``weights`` (resamples, blocks) there is one row per resample;
+    ``count`` may then pass ``weights @ sums.pairs`` when it is already known.
+    """
     total = sum(sums.products)
     if weights is None:
         top, count = total.sum(axis=0), sums.pairs.sum(axis=0)
     else:
-        top, count = weights @ total, weights @ sums.pairs
+        top = weights @ total
+        if count is None:
+            count = weights @ sums.pairs
     with np.errstate(invalid="ignore", divide="ignore"):
         cov = np.where(count > 0, top / np.where(count > 0, count, 1.0), np.nan)
     return cov / len(sums.products), count
@@ -678,6 +685,82 @@ def _scale(cov: np.ndarray, lags: np.ndarray, method: str,
     return integral_time_scale(lags, cov / cov[0], method, fixed_lag_s=fixed_lag_s)
 
 
+def _prefix_sums(terms: np.ndarray, stops: np.ndarray) -> np.ndarray:
+    """``float(np.sum(terms[i, :stops[i]]))`` for every row i.
+
+    Rows with the same stop are summed together along the last axis, which
+    NumPy adds up row by row with the pairwise summation it uses for a 1-D
+    array, so each value is the one the 1-D sum gives, to the last bit.
+    """
+    out = np.zeros(stops.size)
+    for stop in np.unique(stops).tolist():
+        rows = np.flatnonzero(stops == stop)
+        out[rows] = np.sum(np.ascontiguousarray(terms[rows, :stop]), axis=1)
+    return out
+
+
+def _time_scales(cov: np.ndarray, lags: np.ndarray, method: str,
+                 fixed_lag_s: float | None) -> np.ndarray:
+    """T_L of every row of ``cov`` (one bootstrap resample per row), all rows at once.
+
+    The value of each row is ``_scale(row, lags, method, fixed_lag_s).time_s``
+    with the same floating-point operations in the same order (so the same
+    bits); the rules are those of :func:`integral_time_scale`.
+    """
+    n_rows, n_lags = cov.shape
+    out = np.full(n_rows, math.nan)
+    c0 = cov[:, 0]
+    rows = np.flatnonzero(np.isfinite(c0) & (c0 > 0))
+    if rows.size == 0:
+        return out
+    if method not in INTEGRATION_METHODS or n_lags < 2:
+        # let the scalar rule raise its error
+        integral_time_scale(lags, cov[rows[0]] / c0[rows[0]], method, fixed_lag_s=fixed_lag_s)
+    r = cov[rows] / c0[rows, None]
+    bad = ~np.isfinite(r)
+    has_bad = bad.any(axis=1)
+    usable = np.where(has_bad, bad.argmax(axis=1), n_lags)
+    keep = usable >= 2
+    rows, r, usable, has_bad = rows[keep], r[keep], usable[keep], has_bad[keep]
+    if rows.size == 0:
+        return out
+    with np.errstate(invalid="ignore", over="ignore"):  # lags past a row's first NaN are unused
+        terms = 0.5 * (r[:, 1:] + r[:, :-1]) * np.diff(lags)
+    at = np.arange(rows.size)
+    j_lag = np.arange(1, n_lags)  # lag index of column c of r[:, 1:]
+    if method == "fixed_lag":
+        if fixed_lag_s is None or not math.isfinite(fixed_lag_s) or fixed_lag_s <= 0:
+            integral_time_scale(lags, r[0], method, fixed_lag_s=fixed_lag_s)  # raises
+        beyond = fixed_lag_s > lags[usable - 1] * (1 + 1e-12)
+        if np.any(beyond & ~has_bad):
+            first = int(np.flatnonzero(beyond & ~has_bad)[0])
+            integral_time_scale(lags, r[first], method, fixed_lag_s=fixed_lag_s)  # raises
+        j = np.minimum(int(np.searchsorted(lags, fixed_lag_s, side="right") - 1), usable - 2)
+        value = _prefix_sums(terms, np.where(beyond, usable - 1, j))
+        inside = ~beyond
+        ji, ai = j[inside], at[inside]
+        frac = (fixed_lag_s - lags[ji]) / (lags[ji + 1] - lags[ji])
+        r_end = r[ai, ji] + frac * (r[ai, ji + 1] - r[ai, ji])
+        value[inside] = value[inside] + 0.5 * (r[ai, ji] + r_end) * (fixed_lag_s - lags[ji])
+    elif method == "first_zero":
+        crossing = (r[:, 1:] <= 0) & (j_lag[None, :] < usable[:, None])
+        found = crossing.any(axis=1)
+        j = crossing.argmax(axis=1) + 1  # r[j] <= 0 < r[j-1] where found
+        value = _prefix_sums(terms, np.where(found, j - 1, usable - 1))
+        jf, af = j[found], at[found]
+        before, after = r[af, jf - 1], r[af, jf]
+        tau0 = lags[jf - 1] + before / (before - after) * (lags[jf] - lags[jf - 1])
+        value[found] = value[found] + 0.5 * before * (tau0 - lags[jf - 1])
+    else:  # first_minimum
+        minimum = ((r[:, 1:-1] < r[:, :-2]) & (r[:, 1:-1] <= r[:, 2:])
+                   & (j_lag[None, :-1] < (usable - 1)[:, None]))
+        found = minimum.any(axis=1)
+        first = minimum.argmax(axis=1) + 1 if n_lags > 2 else usable
+        value = _prefix_sums(terms, np.where(found, first, usable - 1))
+    out[rows] = value
+    return out
+
+
 def _interval(values: np.ndarray, alpha: float) -> tuple[float, float]:
     """Percentile interval (alpha, 1 - alpha) of the finite values."""
     values = values[np.isfinite(values)]
@@ -770,11 +853,15 @@ def single_particle_statistics(
     blocked = _lag_sums([us, vs], max_lag, block)
     n_blocks = blocked.pairs.shape[0]
     rng = np.random.default_rng(seed)
-    weights = None
+    weights = rep_pairs = None
     if n_blocks >= MIN_BLOCKS:
         draws = rng.integers(0, n_blocks, size=(n_boot, n_blocks))
-        weights = np.zeros((n_boot, n_blocks))
-        np.add.at(weights, (np.repeat(np.arange(n_boot), n_blocks), draws.ravel()), 1.0)
+        # times each block is drawn in each resample (exact small integers)
+        flat = (np.arange(n_boot)[:, None] * n_blocks + draws).ravel()
+        weights = np.bincount(flat, minlength=n_boot * n_blocks).reshape(n_boot, n_blocks)
+        weights = weights.astype(float)
+        # pair counts per resample: sums of integers, exact in any order, shared
+        rep_pairs = weights @ blocked.pairs
     alpha = 0.5 * (1.0 - confidence)
     out = {}
     for name in ("u", "v", "vector"):
@@ -785,8 +872,8 @@ def single_particle_statistics(
         if weights is not None:
             chosen = {"u": [blocked.products[0]], "v": [blocked.products[1]],
                       "vector": blocked.products}[name]
-            rep_cov, _ = _covariance(_Sums(chosen, blocked.pairs), weights)
-            rep_t = np.array([_scale(c, lags, method, fixed_lag_s).time_s for c in rep_cov])
+            rep_cov, _ = _covariance(_Sums(chosen, blocked.pairs), weights, rep_pairs)
+            rep_t = _time_scales(rep_cov, lags, method, fixed_lag_s)
             rep_var = rep_cov[:, 0]
             rep_k = rep_var * rep_t
 
@@ -808,6 +895,16 @@ def single_particle_statistics(
 
 def _regrid(group: pd.DataFrame, dt_s: float, drifter: str) -> tuple[np.ndarray, np.ndarray]:
     t = pd.DatetimeIndex(pd.to_datetime(group["time"], utc=True)).as_unit("ns").asi8
+    return _regrid_arrays(t, group["u_m_s"].to_numpy(dtype=float),
+                          group["v_m_s"].to_numpy(dtype=float), dt_s, drifter)
+
+
+def _regrid_arrays(t: np.ndarray, u_values: np.ndarray, v_values: np.ndarray, dt_s: float,
+                   drifter: str) -> tuple[np.ndarray, np.ndarray]:
+    """Place a drifter's u and v on its grid of ``dt_s`` from its first time (NaN in gaps).
+
+    ``t`` holds the times (ns since the epoch), in any order, of the values.
+    """
     order = np.argsort(t, kind="stable")
     t = (t[order] - t[order][0]) * 1e-9
     slot = t / dt_s
@@ -819,8 +916,8 @@ def _regrid(group: pd.DataFrame, dt_s: float, drifter: str) -> tuple[np.ndarray,
         raise ValueError(f"drifter {drifter!r}: two velocities in one {dt_s:g} s slot")
     u = np.full(int(index[-1]) + 1, np.nan)
     v = np.full(int(index[-1]) + 1, np.nan)
-    u[index] = group["u_m_s"].to_numpy(dtype=float)[order]
-    v[index] = group["v_m_s"].to_numpy(dtype=float)[order]
+    u[index] = u_values[order]
+    v[index] = v_values[order]
     return u, v
 
 
