@@ -64,7 +64,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from driftloop.dispersion import dispersion_by_drifter
+from driftloop.dispersion import (
+    ComponentStatistics,
+    _check_dt,
+    _regrid_arrays,
+    dispersion_by_drifter,
+    single_particle_statistics,
+)
 from driftloop.ridges import Ridge, detect
 from driftloop.wavelet import WaveletConfig
 
@@ -202,42 +208,66 @@ def decompose(track: pd.DataFrame, wavelet_config: WaveletConfig | None = None,
         from driftloop.loops import find_events
         events = find_events(track, wavelet=config).events
     spans = _event_spans(events)
-    parts = []
-    for (drifter, _segment), seg in track.groupby(["drifter_id", "segment"], sort=True,
-                                                 observed=True):
-        seg = seg.sort_values("time", kind="stable")
-        times = _time_ns(seg["time"])
-        z = seg["u"].to_numpy(dtype=float) + 1j * seg["v"].to_numpy(dtype=float)
-        osc = {k: np.zeros(z.size, dtype=complex) for k in KINDS}
-        if z.size >= _MIN_SAMPLES and np.all(np.isfinite(z)):
-            dt_s = float(np.median(np.diff(times))) / 1e9
-            # the same call as the loop stage (loops._pieces_of_segment), so the
-            # decomposition uses the ridges the events came from
-            lat = float(np.mean(seg["lat"].to_numpy(dtype=float)))
-            for ridge in detect(z, dt_s, config, latitude=lat).ridges:
-                idx = np.asarray(ridge.index)
-                kind = _label(int(times[idx[0]]), int(times[idx[-1]]), int(ridge.sense),
-                              spans.get(str(drifter), []))
-                osc[kind][idx] += reconstruct_ridge(ridge)
-        drift = z - sum(osc.values())
-        out = {
-            "drifter_id": seg["drifter_id"].to_numpy(),
-            "segment": seg["segment"].to_numpy(),
-            "time": seg["time"].to_numpy(),
-            "lat": seg["lat"].to_numpy(dtype=float),
-            "lon": seg["lon"].to_numpy(dtype=float),
-        }
-        for k in KINDS:
-            out[f"u_{k}"] = osc[k].real
-            out[f"v_{k}"] = osc[k].imag
-        out["u_drift"] = drift.real
-        out["v_drift"] = drift.imag
-        parts.append(pd.DataFrame(out, index=seg.index))
-    if not parts:
+    order, starts = _segment_order(track)
+    if order.size == 0:
         return pd.DataFrame({c: pd.Series(dtype=float) for c in DECOMPOSITION_COLUMNS})
-    table = pd.concat(parts, ignore_index=True)
+    times = _time_ns(track["time"])[order]
+    ids = track["drifter_id"].to_numpy()[order]
+    lat = track["lat"].to_numpy(dtype=float)[order]
+    z = track["u"].to_numpy(dtype=float)[order] + 1j * track["v"].to_numpy(dtype=float)[order]
+    osc = {k: np.zeros(z.size, dtype=complex) for k in KINDS}
+    for start, stop in zip(starts[:-1].tolist(), starts[1:].tolist(), strict=True):
+        z_seg = z[start:stop]
+        if z_seg.size < _MIN_SAMPLES or not np.all(np.isfinite(z_seg)):
+            continue
+        t_seg = times[start:stop]
+        dt_s = float(np.median(np.diff(t_seg))) / 1e9
+        # the same call as the loop stage (loops._pieces_of_segment), so the
+        # decomposition uses the ridges the events came from
+        lat_mean = float(np.mean(lat[start:stop]))
+        drifter_spans = spans.get(str(ids[start]), [])
+        for ridge in detect(z_seg, dt_s, config, latitude=lat_mean).ridges:
+            idx = np.asarray(ridge.index)
+            kind = _label(int(t_seg[idx[0]]), int(t_seg[idx[-1]]), int(ridge.sense),
+                          drifter_spans)
+            osc[kind][start + idx] += reconstruct_ridge(ridge)
+    drift = z - sum(osc.values())
+    out = {
+        "drifter_id": ids,
+        "segment": track["segment"].to_numpy()[order],
+        "time": track["time"].array.take(order),
+        "lat": lat,
+        "lon": track["lon"].to_numpy(dtype=float)[order],
+    }
+    for k in KINDS:
+        out[f"u_{k}"] = osc[k].real
+        out[f"v_{k}"] = osc[k].imag
+    out["u_drift"] = drift.real
+    out["v_drift"] = drift.imag
+    table = pd.DataFrame(out)
     table["time"] = pd.to_datetime(table["time"], utc=True)
-    return table.loc[:, list(DECOMPOSITION_COLUMNS)]
+    return table
+
+
+def _segment_order(track: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Row positions by drifter, segment and time, and where each segment starts.
+
+    The order is that of iterating ``groupby(["drifter_id", "segment"])``
+    (sorted keys, rows with a missing key left out) and sorting each group
+    by time with a stable sort; ``starts`` holds the first position of each
+    segment in ``order`` and, last, ``order.size``.
+    """
+    codes = track.groupby(["drifter_id", "segment"], sort=True, observed=True).ngroup()
+    codes = codes.to_numpy(dtype=float)
+    by_time = np.asarray(track["time"].reset_index(drop=True)
+                         .sort_values(kind="stable").index, dtype=np.int64)
+    by_time = by_time[np.isfinite(codes[by_time])]
+    order = by_time[np.argsort(codes[by_time], kind="stable")]
+    if order.size == 0:
+        return order, np.zeros(1, dtype=np.int64)
+    sorted_codes = codes[order]
+    starts = np.flatnonzero(np.diff(sorted_codes)) + 1
+    return order, np.concatenate([[0], starts, [order.size]]).astype(np.int64)
 
 
 def _num(value: Any) -> float | None:
@@ -314,6 +344,31 @@ def _dispersion_entry(table: pd.DataFrame, label: str) -> dict[str, Any] | None:
     return out
 
 
+def _stats_entry(stats: Mapping[str, ComponentStatistics]) -> dict[str, Any]:
+    """Return the ``dispersion`` entry of :func:`single_particle_statistics` results.
+
+    The same entry :func:`_dispersion_entry` makes from the rows of the table.
+    """
+    out: dict[str, Any] = {}
+    for name, st in stats.items():
+        out[str(name)] = {
+            "samples": int(st.samples),
+            "variance_m2_s2": _num(st.variance_m2_s2),
+            "variance_ci_m2_s2": [_num(st.variance_ci_m2_s2[0]), _num(st.variance_ci_m2_s2[1])],
+            "integral_time_s": _num(st.integral_time_s),
+            "integral_time_ci_s": [_num(st.integral_time_ci_s[0]),
+                                   _num(st.integral_time_ci_s[1])],
+            "diffusivity_m2_s": _num(st.diffusivity_m2_s),
+            "diffusivity_ci_m2_s": [_num(st.diffusivity_ci_m2_s[0]),
+                                    _num(st.diffusivity_ci_m2_s[1])],
+            "method": str(st.method),
+            "limit_s": _num(st.limit_s),
+            "limit_found": bool(st.limit_found),
+            "dof_effective": _num(st.dof_effective),
+        }
+    return out
+
+
 def grid_step_counts(decomposed: pd.DataFrame) -> dict[int, int]:
     """Count the time steps (ns) between grid points within each segment.
 
@@ -328,14 +383,23 @@ def grid_step_counts(decomposed: pd.DataFrame) -> dict[int, int]:
         Step (ns) -> how many times it occurs; merged over drifters, these
         counts give :func:`grid_step_from_counts` the release's grid step.
     """
-    counts: dict[int, int] = {}
-    for _, seg in decomposed.groupby(["drifter_id", "segment"], sort=False, observed=True):
-        t = np.sort(_time_ns(seg["time"]))
-        if t.size > 1:
-            values, n = np.unique(np.diff(t), return_counts=True)
-            for value, k in zip(values.tolist(), n.tolist(), strict=True):
-                counts[value] = counts.get(value, 0) + k
-    return counts
+    if len(decomposed) < 2:
+        return {}
+    codes = decomposed.groupby(["drifter_id", "segment"], sort=False,
+                               observed=True).ngroup().to_numpy(dtype=float)
+    keep = np.flatnonzero(np.isfinite(codes))
+    codes = codes[keep].astype(np.int64)
+    t = _time_ns(decomposed["time"])[keep]
+    order = np.lexsort((t, codes))  # by segment (first seen first), then time
+    codes, t = codes[order], t[order]
+    within = codes[1:] == codes[:-1]
+    steps, segment = np.diff(t)[within], codes[1:][within]
+    if steps.size == 0:
+        return {}
+    # keys in the order the segments meet them (each segment's steps ascending)
+    order = np.lexsort((steps, segment))
+    values, first, n = np.unique(steps[order], return_index=True, return_counts=True)
+    return {int(values[i]): int(n[i]) for i in np.argsort(first, kind="stable")}
 
 
 def grid_step_from_counts(counts: Mapping[int, int]) -> float:
@@ -424,9 +488,19 @@ def drifter_drift_statistics(rows: pd.DataFrame, drifter: str, decay_h: list[flo
         The entry (without ``drifters``), as :func:`drift_statistics` gives it.
     """
     options = {"n_boot": 200, **dict(dispersion_options or {})}
-    table = dispersion_by_drifter(_velocities(rows), dt_s, release=False, **options)
+    labels = pd.unique(rows["drifter_id"])
+    if len(labels) == 1 and isinstance(labels[0], str) and labels[0] == drifter:
+        # one drifter: its statistics directly, as dispersion_by_drifter gives them
+        dt_s = _check_dt(dt_s)
+        u, v = drift_series(rows, drifter, dt_s)
+        ok = np.isfinite(u) & np.isfinite(v)
+        stats = single_particle_statistics(u, v, dt_s, **options) if ok.sum() >= 3 else None
+        dispersion = None if stats is None else _stats_entry(stats)
+    else:
+        table = dispersion_by_drifter(_velocities(rows), dt_s, release=False, **options)
+        dispersion = _dispersion_entry(table, drifter)
     entry = _block(rows, decay_h)
-    entry["dispersion"] = _dispersion_entry(table, drifter)
+    entry["dispersion"] = dispersion
     return entry
 
 
@@ -447,9 +521,8 @@ def drift_series(rows: pd.DataFrame, drifter: str, dt_s: float) -> tuple[np.ndar
     u, v : numpy.ndarray
         East and north drift velocity (m/s).
     """
-    from driftloop.dispersion import _regrid
-
-    return _regrid(_velocities(rows), dt_s, drifter)
+    return _regrid_arrays(_time_ns(rows["time"]), rows["u_drift"].to_numpy(dtype=float),
+                          rows["v_drift"].to_numpy(dtype=float), dt_s, drifter)
 
 
 def release_drift_statistics(rows: pd.DataFrame, decay_h: list[float],
@@ -480,34 +553,15 @@ def release_drift_statistics(rows: pd.DataFrame, decay_h: list[float],
     dict
         The release entry.
     """
-    from driftloop.dispersion import DISPERSION_COLUMNS, single_particle_statistics
-
     options = {"n_boot": 200, **dict(dispersion_options or {})}
-    records = []
+    dispersion = None
     if series:
         us = [s[0] for s in series]
         vs = [s[1] for s in series]
-        stats = single_particle_statistics(us, vs, dt_s, **options)
-        duration = float(sum(a.size for a in us) * dt_s)
-        for name, st in stats.items():
-            records.append({
-                "drifter_id": RELEASE_KEY, "component": name, "samples": st.samples,
-                "duration_s": duration, "variance_m2_s2": st.variance_m2_s2,
-                "variance_low_m2_s2": st.variance_ci_m2_s2[0],
-                "variance_high_m2_s2": st.variance_ci_m2_s2[1],
-                "integral_time_s": st.integral_time_s,
-                "integral_time_low_s": st.integral_time_ci_s[0],
-                "integral_time_high_s": st.integral_time_ci_s[1],
-                "diffusivity_m2_s": st.diffusivity_m2_s,
-                "diffusivity_low_m2_s": st.diffusivity_ci_m2_s[0],
-                "diffusivity_high_m2_s": st.diffusivity_ci_m2_s[1],
-                "method": st.method, "limit_s": st.limit_s, "limit_found": st.limit_found,
-                "dof_effective": st.dof_effective, "blocks": st.blocks, "block_s": st.block_s,
-            })
-    table = pd.DataFrame(records, columns=list(DISPERSION_COLUMNS))
+        dispersion = _stats_entry(single_particle_statistics(us, vs, dt_s, **options))
     release = _block(rows, decay_h)
     release["drifters"] = n_drifters
-    release["dispersion"] = _dispersion_entry(table, RELEASE_KEY)
+    release["dispersion"] = dispersion
     release["grid_step_s"] = dt_s
     return release
 
