@@ -272,7 +272,7 @@ class BatchResult:
 
 def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, stages: str,
              formats: tuple) -> BatchResult:
-    from driftloop.qc import QC_COLUMNS, run_qc
+    from driftloop.qc import run_qc
     from driftloop.summary import SummaryAccumulator
 
     timer: dict[str, float] = {}
@@ -287,16 +287,11 @@ def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, s
             timer[stage] = timer.get(stage, 0.0) + now - clock
             clock = now
 
+        # one QC call for the batch: it flags each drifter as if alone
         summary = SummaryAccumulator(config)
-        parts = []
-        for drifter, rows in batch:
-            flags = run_qc(rows, config.qc).loc[:, list(QC_COLUMNS)]
-            flagged = rows.copy()
-            for name in QC_COLUMNS:
-                flagged[name] = flags[name]
-            summary.add_rows(flagged, drifter)
-            parts.append(flagged)
-        flagged = parts[0] if len(parts) == 1 else pd.concat(parts)
+        tables = [rows for _, rows in batch]
+        flagged = run_qc(tables[0] if len(tables) == 1 else pd.concat(tables), config.qc)
+        summary.add_drifters(flagged, [(drifter, len(rows)) for drifter, rows in batch])
         lap("qc")
         result = BatchResult([d for d, _ in batch], flagged, summary, timer)
         if stages == "qc":
@@ -401,7 +396,7 @@ def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Conf
                   stages: str = "all", formats: tuple = ()) -> BatchResult:
     """Run the per-drifter stages on a batch of drifters.
 
-    QC runs drifter by drifter; the later stages run on the batch's table,
+    QC and the later stages run on the batch's table,
     where every stage treats each drifter on its own, so a drifter's
     results do not depend on which batch it is in.
 
