@@ -98,15 +98,18 @@ class SpectraAccumulator:
         """
         window_days = self.window_days
         acc, count = None, 0
-        for _, seg in group.groupby("segment", sort=True):
-            t = seg["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+        t_all = group["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+        u_all = group["u"].to_numpy(dtype=float)
+        v_all = group["v"].to_numpy(dtype=float)
+        for rows in _group_positions(pd.factorize(group["segment"], sort=True)[0]):
+            t = t_all[rows]
             if t.size < 4:
                 continue
             dt = float(np.median(np.diff(t)))
             nperseg = int(round(window_days * _DAY_S / dt))
             if t.size < nperseg or nperseg < 8:
                 continue
-            z = seg["u"].to_numpy(dtype=float) + 1j * seg["v"].to_numpy(dtype=float)
+            z = u_all[rows] + 1j * v_all[rows]
             freq, psd, n = _segment_spectra(z, 1.0 / dt, nperseg)
             acc = psd * n if acc is None else acc + psd * n
             count += n
@@ -116,8 +119,8 @@ class SpectraAccumulator:
         pos = freq > 0
         order = np.argsort(freq[pos])
         f_pos = freq[pos][order]
-        neg_index = {round(float(-f), 12): i for i, f in enumerate(freq) if f < 0}
-        cw = np.array([psd[neg_index[round(float(f), 12)]] for f in f_pos])
+        neg_index = {round(-f, 12): i for i, f in enumerate(freq.tolist()) if f < 0}
+        cw = psd[np.array([neg_index[round(f, 12)] for f in f_pos.tolist()], dtype=np.int64)]
         ccw = psd[pos][order]
         scale = 1.0 / _DAY_S  # PSD per Hz -> per cycle per day
         return pd.DataFrame({
@@ -158,8 +161,12 @@ class SpectraAccumulator:
         RotarySpectra
             The table and the window length.
         """
-        rows = [r.loc[:, list(_COLUMNS)] for r in self.rows]
-        if rows and self._freq is not None:
+        if not self.rows:
+            return RotarySpectra(pd.DataFrame(columns=_COLUMNS), self.window_days)
+        # the drifters' rows share their columns: one concatenation, then the
+        # public columns once
+        rows = [pd.concat(self.rows, ignore_index=True).loc[:, list(_COLUMNS)]]
+        if self._freq is not None:
             both = self._psd / self._windows
             rows.append(pd.DataFrame({
                 "drifter_id": RELEASE_ID,
@@ -168,11 +175,25 @@ class SpectraAccumulator:
                 "psd_clockwise": both[1] / _DAY_S,
                 "windows": int(self._windows),
             }))
-        table = pd.concat(rows, ignore_index=True) if rows else pd.DataFrame(columns=_COLUMNS)
+        table = pd.concat(rows, ignore_index=True)
         return RotarySpectra(table.loc[:, list(_COLUMNS)], self.window_days)
 
 
 _COLUMNS = ("drifter_id", "frequency_cpd", "psd_anticlockwise", "psd_clockwise", "windows")
+
+
+def _group_positions(codes: pd.Series | np.ndarray) -> list[np.ndarray]:
+    """Row positions of each group, in group order, from group numbers of the rows.
+
+    ``codes`` numbers the groups from 0 (as ``groupby(...).ngroup()`` or
+    ``pandas.factorize`` do); rows numbered NaN or negative belong to no
+    group and are left out.  Each group keeps the order of its rows.
+    """
+    codes = np.asarray(codes, dtype=float)
+    order = np.argsort(codes, kind="stable")
+    order = order[np.isfinite(codes[order]) & (codes[order] >= 0)]
+    edges = np.flatnonzero(np.diff(codes[order])) + 1
+    return np.split(order, edges) if order.size else []
 
 
 def rotary_spectra(track: pd.DataFrame, window_days: float = 10.0) -> RotarySpectra:
@@ -237,15 +258,26 @@ def inertial_peak_check(
     """
     out: dict[str, dict] = {}
     table = spectra.table
-    for drifter, group in track.groupby("drifter_id", sort=True, observed=True):
-        lat = group["lat"].to_numpy(dtype=float)
+    # the rows of each drifter's spectrum, found once
+    spec_rows: dict[str, np.ndarray] = {}
+    if len(table):
+        labels = table["drifter_id"].astype(str).to_numpy()
+        for rows in _group_positions(pd.Series(pd.factorize(labels)[0], dtype=float)):
+            spec_rows[str(labels[rows[0]])] = rows
+    freq = table["frequency_cpd"].to_numpy()
+    lat_all = track["lat"].to_numpy(dtype=float)
+    t_all = track["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+    ids = track["drifter_id"].to_numpy()
+    for rows in _group_positions(track.groupby("drifter_id", sort=True, observed=True).ngroup()):
+        drifter = str(ids[rows[0]])
+        lat = lat_all[rows]
         away = np.abs(lat) >= equator_band_deg
-        t = group["time"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+        t = t_all[rows]
         dt = float(np.median(np.diff(t))) if t.size > 1 else 0.0
         days = away.sum() * dt / _DAY_S
-        spec = table[table["drifter_id"] == str(drifter)]
-        if days < min_days or spec.empty:
-            out[str(drifter)] = {
+        spec = spec_rows.get(drifter)
+        if days < min_days or spec is None:
+            out[drifter] = {
                 "checked": False,
                 "reason": (f"fewer than {min_days:g} days poleward of {equator_band_deg:g} deg"
                            if days < min_days else "no segment long enough for a spectrum"),
@@ -254,9 +286,9 @@ def inertial_peak_check(
         mean_lat = float(np.mean(lat[away]))
         f_cpd = abs(float(coriolis_parameter(mean_lat))) / (2 * np.pi) * _DAY_S
         side = "psd_clockwise" if mean_lat > 0 else "psd_anticlockwise"
-        band = spec[spec["frequency_cpd"] >= 0.5 * f_cpd]
-        peak = float(band["frequency_cpd"].iloc[int(np.argmax(band[side].to_numpy()))])
-        out[str(drifter)] = {
+        band = spec[freq[spec] >= 0.5 * f_cpd]
+        peak = float(freq[band][int(np.argmax(table[side].to_numpy()[band]))])
+        out[drifter] = {
             "checked": True,
             "side": side.removeprefix("psd_"),
             "peak_cpd": peak,
