@@ -143,7 +143,7 @@ def test_killed_runs_leave_previous_or_new_complete_outputs(runs):
                 time.sleep(rng.uniform(0.0, runs["duration"]))
             elif when == "writing fixes.csv":
                 assert _wait_for(lambda f=folder: _parts(f, "fixes.csv"), proc, 120)
-                time.sleep(rng.uniform(0.0, 0.2))
+                time.sleep(rng.uniform(0.0, 0.02))
             elif when == "after fixes.csv":
                 # a run may finish before the poll sees the moment: the kill then
                 # finds it done, and the folder check below still applies
@@ -159,7 +159,7 @@ def test_killed_runs_leave_previous_or_new_complete_outputs(runs):
         problems = _check_folder(folder, previous, new)
         assert not problems, (when, problems)
     # the kill that waited for the temporary fixes.csv landed while the run was writing it
-    # (writing 100,000 rows takes far longer than the wait); the later kills may find the
+    # (writing 100,000 rows takes longer than the wait); the later kills may find the
     # run already finished, which the folder check covers too
     when, code, parts = landed[1]
     assert code == -signal.SIGKILL and any(p.startswith(".fixes.csv.") for p in parts), landed

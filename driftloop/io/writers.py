@@ -9,6 +9,8 @@ complete file or the new complete file, never a truncated one.
 from __future__ import annotations
 
 import contextlib
+import csv
+import io
 import json
 import os
 import tempfile
@@ -18,12 +20,15 @@ from typing import IO, Any
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 
 __all__ = [
     "CSV_CHUNK_ROWS",
     "AtomicFile",
     "CsvAppender",
     "csv_text",
+    "float_reprs",
     "PART_SUFFIX",
     "atomic_open",
     "format_time",
@@ -224,6 +229,13 @@ def _sync_folder(folder: Path) -> None:
         os.close(fd)
 
 
+_LARGE = pa.large_string()
+
+
+def _large(text: str) -> pa.Scalar:
+    return pa.scalar(text, _LARGE)
+
+
 def format_time(times: pd.Series) -> pd.Series:
     """Format UTC times as ISO 8601 strings with a ``Z`` designator.
 
@@ -238,19 +250,27 @@ def format_time(times: pd.Series) -> pd.Series:
         Strings like ``2026-03-01T12:00:00Z`` (fractional seconds only when
         present); NaT becomes the empty string.
     """
+    index = times.index if isinstance(times, pd.Series) else None
+    text = _time_texts(times).to_numpy(zero_copy_only=False)
+    return pd.Series(text, index=index, dtype=object)
+
+
+def _time_texts(times: Any) -> pa.Array:
+    """:func:`format_time` of the times, as an Arrow ``large_string`` array."""
     t = pd.to_datetime(times, utc=True)
-    index = t.index if isinstance(t, pd.Series) else None
     ns = pd.DatetimeIndex(t).tz_convert("UTC").tz_localize(None).as_unit("ns").to_numpy()
     nat = np.isnat(ns)
     # numpy formats whole arrays in C; a datetime64[us] string has exactly the
     # digits of strftime's %f, and NaT rows are blanked below
-    text = np.char.add(np.datetime_as_string(ns, unit="s"), "Z").astype(object)
+    text = pa.array(np.datetime_as_string(ns, unit="s"), _LARGE)
     fraction = ~nat & (ns.view(np.int64) % 1_000_000_000 != 0)
     if fraction.any():
-        micro = np.datetime_as_string(ns[fraction], unit="us")
-        text[fraction] = np.char.add(micro, "Z")
-    text[nat] = ""
-    return pd.Series(text, index=index, dtype=object)
+        micro = pa.array(np.datetime_as_string(ns[fraction], unit="us"), _LARGE)
+        text = pc.replace_with_mask(text, pa.array(fraction), micro)
+    text = pc.binary_join_element_wise(text, _large(""), _large("Z"))
+    if nat.any():
+        text = pc.if_else(pa.array(nat), _large(""), text)
+    return text
 
 
 #: Rows formatted and written at a time by :func:`write_csv`.
@@ -273,15 +293,166 @@ def write_csv(path: str | Path, table: pd.DataFrame, float_digits: dict | None =
     float_digits : dict, optional
         ``{column: decimals}`` for columns to round on output.
     """
-    times = [n for n in table.columns if pd.api.types.is_datetime64_any_dtype(table[n].dtype)]
     with atomic_open(path) as handle:
         for start in range(0, max(len(table), 1), CSV_CHUNK_ROWS):
-            out = table.iloc[start : start + CSV_CHUNK_ROWS].copy()
+            handle.write(_csv_chunk(_rounded(table.iloc[start : start + CSV_CHUNK_ROWS],
+                                             float_digits), header=start == 0))
+
+
+def float_reprs(values: np.ndarray) -> pa.Array:
+    """Python's ``repr`` of every float64 value, formatted in Arrow.
+
+    Parameters
+    ----------
+    values : numpy.ndarray
+        float64 values.
+
+    Returns
+    -------
+    pyarrow.Array
+        ``large_string`` texts equal to ``repr(float(x))`` (the shortest
+        decimal that reads back as ``x``), NaN included as ``nan``.
+
+    Notes
+    -----
+    Arrow's cast to string writes the same shortest round-trip digits
+    (closest to the value, ties to even) but other notation: it is kept for
+    values that Python writes in plain notation without a trailing ``.0``
+    (not integral, 1e-4 <= |x| < 1e16) where Arrow wrote no exponent;
+    integral values below 1e16 are their integer text with ``.0``
+    (``-0.0`` for negative zero); the rest (NaN, infinities, tiny and huge
+    values) go through :func:`repr`.
+
+    Examples
+    --------
+    >>> float_reprs(np.array([0.1, 2.0, -0.0, 1e-05, 1e16, float("nan")])).to_pylist()
+    ['0.1', '2.0', '-0.0', '1e-05', '1e+16', 'nan']
+    """
+    v = np.ascontiguousarray(values, dtype=np.float64)
+    text = pc.cast(pa.array(v), _LARGE)
+    with np.errstate(invalid="ignore"):
+        size = np.abs(v)
+        finite = np.isfinite(v)
+        integral = finite & (np.trunc(v) == v) & (size < 1e16)
+        plain = finite & ~integral & (size >= 1e-4) & (size < 1e16)
+    if plain.any():
+        plain &= ~np.asarray(pc.match_substring(text, "e"), dtype=bool)
+    if integral.any():
+        whole = pc.cast(pa.array(v[integral].astype(np.int64)), _LARGE)
+        whole = pc.binary_join_element_wise(whole, _large(".0"), _large(""))
+        negative_zero = np.signbit(v[integral]) & (v[integral] == 0.0)
+        if negative_zero.any():
+            whole = pc.if_else(pa.array(negative_zero), _large("-0.0"), whole)
+        text = pc.replace_with_mask(text, pa.array(integral), whole)
+    rest = ~(plain | integral)
+    if rest.any():
+        text = pc.replace_with_mask(
+            text, pa.array(rest), pa.array(list(map(float.__repr__, v[rest].tolist())), _LARGE)
+        )
+    return text
+
+
+#: Characters that may make the csv module quote a field.
+_CSV_SPECIAL = '[,"\r\n]'
+
+
+def _csv_field(value: str) -> str:
+    """One field as :func:`csv.writer` writes it (QUOTE_MINIMAL), not the only one of its row."""
+    buffer = io.StringIO()
+    csv.writer(buffer, lineterminator="\n").writerow([value, ""])
+    return buffer.getvalue()[:-2]
+
+
+def _csv_strings(array: pa.Array) -> pa.Array:
+    """Strings with nulls written empty and fields the csv module would quote quoted."""
+    array = pc.fill_null(array.cast(_LARGE), _large(""))
+    special = np.asarray(pc.match_substring_regex(array, _CSV_SPECIAL), dtype=bool)
+    if special.any():
+        values = np.asarray(array.to_pylist(), dtype=object)[special]
+        array = pc.replace_with_mask(array, pa.array(special),
+                                     pa.array([_csv_field(v) for v in values], _LARGE))
+    return array
+
+
+def _csv_column(series: pd.Series) -> pa.Array | None:
+    """Return the fields pandas' ``to_csv`` writes for a column (None: dtype not handled here).
+
+    pandas writes float64 columns through NumPy's cast to ``str`` (Python's
+    ``repr`` digits), integers and booleans as Python's ``str`` would, and
+    missing values (NaN, None, NA) as empty fields.
+    """
+    dtype = series.dtype
+    if pd.api.types.is_datetime64_any_dtype(dtype):
+        return _time_texts(series)
+    if isinstance(dtype, np.dtype):
+        values = series.to_numpy()
+        if dtype == np.float64:
+            text = float_reprs(values)
+            missing = np.isnan(values)
+            if missing.any():
+                text = pc.if_else(pa.array(missing), _large(""), text)
+            return text
+        if dtype.kind in "iu":
+            return pc.cast(pa.array(values), _LARGE)
+        if dtype.kind == "b":
+            return pc.if_else(pa.array(values), _large("True"), _large("False"))
+        if dtype.kind == "O":
+            missing = pd.isna(values)
+            present = values[~missing]
+            if not all(isinstance(v, str) for v in present.tolist()):
+                return None
+            out = np.where(missing, None, values)
+            return _csv_strings(pa.array(out.tolist(), _LARGE))
+        return None
+    if isinstance(dtype, pd.StringDtype):
+        array = pa.array(series.array)
+        if isinstance(array, pa.ChunkedArray):
+            array = array.combine_chunks()
+        return _csv_strings(array)
+    return None
+
+
+def _rounded(table: pd.DataFrame, float_digits: dict | None) -> pd.DataFrame:
+    if not float_digits:
+        return table
+    table = table.copy()
+    for name, digits in float_digits.items():
+        table[name] = table[name].round(digits)
+    return table
+
+
+def _csv_chunk(table: pd.DataFrame, header: bool) -> str:
+    """Format a chunk as ``table.to_csv(None, index=False, header=header)`` does, in Arrow.
+
+    Unix line ends.
+
+    Datetime columns are written as :func:`format_time` writes them.  Tables
+    this does not handle (fewer than two columns, labels that are
+    not unique strings, other dtypes) are written by pandas.
+    """
+    labels = list(table.columns)
+    fields = None
+    if len(labels) > 1 and all(isinstance(c, str) for c in labels) and table.columns.is_unique:
+        fields = [_csv_column(table[c]) for c in labels]
+    if fields is None or any(f is None for f in fields):
+        times = [n for n in labels if pd.api.types.is_datetime64_any_dtype(table[n].dtype)]
+        if times:
+            table = table.copy()
             for name in times:
-                out[name] = format_time(out[name])
-            for name, digits in (float_digits or {}).items():
-                out[name] = out[name].round(digits)
-            out.to_csv(handle, index=False, header=start == 0, lineterminator="\n")
+                table[name] = format_time(table[name])
+        return table.to_csv(None, index=False, header=header, lineterminator="\n")
+    head = ""
+    if header:
+        buffer = io.StringIO()
+        csv.writer(buffer, lineterminator="\n").writerow(labels)
+        head = buffer.getvalue()
+    if len(table) == 0:
+        return head
+    rows = pc.binary_join_element_wise(*fields, _large(","))
+    rows = pc.binary_join_element_wise(rows, _large(""), _large("\n"))
+    offsets = np.frombuffer(rows.buffers()[1], dtype=np.int64)[rows.offset:]
+    data = rows.buffers()[2]
+    return head + data[int(offsets[0]):int(offsets[len(rows)])].to_pybytes().decode("utf-8")
 
 
 def csv_text(table: pd.DataFrame, float_digits: dict | None = None) -> str:
@@ -299,15 +470,10 @@ def csv_text(table: pd.DataFrame, float_digits: dict | None = None) -> str:
     str
         The CSV text (Unix line ends).
     """
-    times = [n for n in table.columns if pd.api.types.is_datetime64_any_dtype(table[n].dtype)]
     parts = []
     for start in range(0, max(len(table), 1), CSV_CHUNK_ROWS):
-        out = table.iloc[start : start + CSV_CHUNK_ROWS].copy()
-        for name in times:
-            out[name] = format_time(out[name])
-        for name, digits in (float_digits or {}).items():
-            out[name] = out[name].round(digits)
-        parts.append(out.to_csv(None, index=False, header=start == 0, lineterminator="\n"))
+        parts.append(_csv_chunk(_rounded(table.iloc[start : start + CSV_CHUNK_ROWS],
+                                         float_digits), header=start == 0))
     return "".join(parts)
 
 
