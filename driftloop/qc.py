@@ -344,6 +344,8 @@ class _Track:
         self.noise_m = _SPEED_NOISE_SIGMAS * np.sqrt(2.0) * config.gps_noise_m
         self._next = np.full(self.t.size, -1, dtype=np.int64)
         self._dist = np.full(self.t.size, np.nan)
+        self._az1 = np.full(self.t.size, np.nan)  # azimuths of the cached legs (degrees)
+        self._az2 = np.full(self.t.size, np.nan)
 
     def split(self, live: np.ndarray, removed: np.ndarray) -> _Track:
         """Return a view of the track cut where ``removed`` fixes lie between two live ones."""
@@ -378,7 +380,10 @@ class _Track:
         need = same & (self._next[a] != b)
         if need.any():
             ia, ib = a[need], b[need]
-            self._dist[ia] = self.distance(ia, ib)
+            inv = geodesy.inverse(self.lon[ia], self.lat[ia], self.lon[ib], self.lat[ib])
+            self._dist[ia] = inv.distance_m
+            self._az1[ia] = inv.azimuth1_deg
+            self._az2[ia] = inv.azimuth2_deg
             self._next[ia] = ib
         dist = np.where(same, self._dist[a], np.nan)
         return dist, self.t[b] - self.t[a], same
@@ -743,8 +748,10 @@ def _local_offsets(
         q = nb[p, k]
         wanted = (row[p] >= 0) | (row[q] >= 0)
         p, q = p[wanted], q[wanted]
-        pairs.append((k, offsets.index(-o), p, q))
-        ends.append((act[p], act[q]))
+        # legs between consecutive live fixes are solved already
+        cached = track._next[act[p]] == act[q]
+        pairs.append((k, offsets.index(-o), p, q, cached))
+        ends.append((act[p[~cached]], act[q[~cached]]))
     a = np.concatenate([e[0] for e in ends])
     b = np.concatenate([e[1] for e in ends])
     inv = geodesy.inverse(track.lon[a], track.lat[a], track.lon[b], track.lat[b])
@@ -756,11 +763,16 @@ def _local_offsets(
         sub_x[valid] = s_all[:n] * np.sin(az)
         sub_y[valid] = s_all[:n] * np.cos(az)
         x[direct[todo]], y[direct[todo]] = sub_x, sub_y
-    for k, back, p, q in pairs:
-        s = s_all[n : n + p.size]
-        az1 = np.radians(az1_all[n : n + p.size])
-        az2 = np.radians(az2_all[n : n + p.size])
-        n += p.size
+    for k, back, p, q, cached in pairs:
+        fresh = int(np.count_nonzero(~cached))
+        s, az1, az2 = np.empty(p.size), np.empty(p.size), np.empty(p.size)
+        s[~cached] = s_all[n : n + fresh]
+        az1[~cached] = az1_all[n : n + fresh]
+        az2[~cached] = az2_all[n : n + fresh]
+        n += fresh
+        leg = act[p[cached]]
+        s[cached], az1[cached], az2[cached] = track._dist[leg], track._az1[leg], track._az2[leg]
+        az1, az2 = np.radians(az1), np.radians(az2)
         fwd = row[p] >= 0
         x[row[p[fwd]], k] = (s * np.sin(az1))[fwd]
         y[row[p[fwd]], k] = (s * np.cos(az1))[fwd]
