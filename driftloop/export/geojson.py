@@ -40,11 +40,13 @@ from typing import TYPE_CHECKING, Any
 import antimeridian
 import numpy as np
 import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
 import shapely
 from shapely.geometry.base import BaseGeometry
 from shapely.geometry.polygon import orient
 
-from driftloop.io.writers import atomic_open, format_time
+from driftloop.io.writers import atomic_open, float_reprs, format_time, time_texts
 
 if TYPE_CHECKING:
     import geopandas as gpd
@@ -679,6 +681,32 @@ def _value_texts(values: list[Any]) -> list[str]:
     return [_VALUE_TEXT[type(v)](v) for v in values]
 
 
+def _column_texts(series: pd.Series) -> list[str]:
+    """JSON texts of one property column: those of :func:`property_values`, made in Arrow.
+
+    Floats are Python's ``repr`` (as the json module writes them,
+    :func:`driftloop.io.writers.float_reprs`) or ``null``; times their
+    :func:`format_time` string in quotes (nothing in it needs escaping) or
+    ``null``; other columns go through :func:`property_values`.
+    """
+    dtype = series.dtype
+    if pd.api.types.is_float_dtype(dtype):
+        values = series.to_numpy(dtype=float, na_value=np.nan)
+        text = float_reprs(values)
+        missing = ~np.isfinite(values)
+    elif pd.api.types.is_datetime64_any_dtype(dtype):
+        times = series if getattr(dtype, "tz", None) is not None else series.dt.tz_localize("UTC")
+        quote = pa.scalar('"', pa.large_string())
+        text = pc.binary_join_element_wise(quote, time_texts(times.dt.tz_convert("UTC")), quote,
+                                           pa.scalar("", pa.large_string()))
+        missing = series.isna().to_numpy()
+    else:
+        return _value_texts(property_values(series))
+    if missing.any():
+        text = pc.if_else(pa.array(missing), pa.scalar("null", pa.large_string()), text)
+    return text.to_pylist()
+
+
 def _member_texts(name: str, values: list[Any]) -> list[str]:
     """``"name":value`` JSON texts of one property column (values from property_values)."""
     key = encode_basestring(name) + ":"
@@ -829,12 +857,11 @@ def _feature_lines(layer: gpd.GeoDataFrame) -> tuple[list[str], np.ndarray]:
     _check_crs(layer)
     geometry_name = layer.geometry.name
     columns = [c for c in layer.columns if c != geometry_name]
-    values = [property_values(layer[c]) for c in columns]
     geoms = _round_geometries(conform_geometries(layer.geometry))
     texts = _geometry_texts(geoms)
     # each line is a %-template of the member keys filled with the value texts
     members = ",".join(encode_basestring(str(c)).replace("%", "%%") + ":%s" for c in columns)
-    columns_text = [_value_texts(v) for v in values]
+    columns_text = [_column_texts(layer[c]) for c in columns]
     plain = '{"type":"Feature","properties":{' + members + '},"geometry":%s}'
     lines = [plain % row for row in zip(*columns_text, texts, strict=True)]
     present = ~shapely.is_missing(geoms)

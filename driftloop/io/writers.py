@@ -32,6 +32,7 @@ __all__ = [
     "PART_SUFFIX",
     "atomic_open",
     "format_time",
+    "time_texts",
     "new_file_mode",
     "remove_stale_parts",
     "write_csv",
@@ -251,12 +252,23 @@ def format_time(times: pd.Series) -> pd.Series:
         present); NaT becomes the empty string.
     """
     index = times.index if isinstance(times, pd.Series) else None
-    text = _time_texts(times).to_numpy(zero_copy_only=False)
+    text = time_texts(times).to_numpy(zero_copy_only=False)
     return pd.Series(text, index=index, dtype=object)
 
 
-def _time_texts(times: Any) -> pa.Array:
-    """:func:`format_time` of the times, as an Arrow ``large_string`` array."""
+def time_texts(times: Any) -> pa.Array:
+    """Format times as :func:`format_time` does, into an Arrow array.
+
+    Parameters
+    ----------
+    times : pandas.Series or array_like
+        Times; naive ones are taken as UTC.
+
+    Returns
+    -------
+    pyarrow.Array
+        ``large_string`` texts, empty for NaT.
+    """
     t = pd.to_datetime(times, utc=True)
     ns = pd.DatetimeIndex(t).tz_convert("UTC").tz_localize(None).as_unit("ns").to_numpy()
     nat = np.isnat(ns)
@@ -383,7 +395,7 @@ def _csv_column(series: pd.Series) -> pa.Array | None:
     """
     dtype = series.dtype
     if pd.api.types.is_datetime64_any_dtype(dtype):
-        return _time_texts(series)
+        return time_texts(series)
     if isinstance(dtype, np.dtype):
         values = series.to_numpy()
         if dtype == np.float64:
