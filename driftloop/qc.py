@@ -608,10 +608,11 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
     geodesic problem).  A quadratic in time fitted by least squares gives
     the predicted position at the fix's time; the residual over its
     threshold is the fix's *ratio* (see :func:`_fit_ratio`).  The same fit
-    is also made with each neighbour left out.  A fix is tested only with
-    the full number of neighbours on each side, so that every fit
-    interpolates: the first and last two fixes of a stretch are left to the
-    speed tests.
+    is also made with each neighbour left out (where the blame below is
+    compared: up to two fixes from one over its threshold).  A fix is
+    tested only with the full number of neighbours on each side, so that
+    every fit interpolates: the first and last two fixes of a stretch are
+    left to the speed tests.
 
     One displaced fix spoils the fits of its neighbours too, and a good fix
     next to it may even show the larger ratio (its prediction leans on the
@@ -634,6 +635,7 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
     fitted_nb = np.full((n, slots), -1, dtype=np.int64)
     fitted_ratio = np.zeros(n)
     fitted_loo = np.zeros((n, slots))
+    fitted_has_loo = np.zeros(n, dtype=bool)
     for _ in range(_MAX_PASSES):
         act = np.flatnonzero(live & ~flagged)
         m = act.size
@@ -661,26 +663,48 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
         same = (fitted[c] & (fitted_direct[c] == direct[todo])
                 & (fitted_nb[c] == neighbour[todo]).all(axis=1))
         ratio[todo[same]] = fitted_ratio[c[same]]
-        loo[todo[same]] = fitted_loo[c[same]]
         redo = todo[~same]
         x, y = _local_offsets(track, act, nb, offsets, redo, direct)
         for start in range(0, redo.size, _CHUNK):
             centre = redo[start : start + _CHUNK]
             tau_s = track.t[act[nb[centre]]] - track.t[act[centre]][:, None]
-            xc, yc = x[start : start + _CHUNK], y[start : start + _CHUNK]
             full = np.ones((centre.size, slots), dtype=bool)
-            r = _fit_ratio(tau_s, xc, yc, full, config)
-            lo = _fit_ratio(tau_s[:, None, :], xc[:, None, :], yc[:, None, :], leave_out, config)
+            r = _fit_ratio(tau_s, x[start : start + _CHUNK], y[start : start + _CHUNK], full,
+                           config)
             ratio[centre] = np.where(np.isfinite(r), r, 0.0)
-            loo[centre] = np.where(np.isfinite(lo), lo, ratio[centre][:, None])
         c = act[redo]
         fitted[c] = True
         fitted_direct[c] = direct[redo]
         fitted_nb[c] = neighbour[redo]
         fitted_ratio[c] = ratio[redo]
-        fitted_loo[c] = loo[redo]
+        fitted_has_loo[c] = False
         if not (ratio > 1.0).any():
             break
+        # the fits without one neighbour enter the blame of the fixes over the
+        # threshold and of their neighbours: they are needed up to two
+        # neighbours away from a fix over the threshold
+        near = ratio > 1.0
+        for _hop in range(2):
+            reach = near.copy()
+            for k in range(slots):
+                j = nb[near, k]
+                reach[j[j >= 0]] = True
+            near = reach
+        need = todo[near[todo]]
+        c = act[need]
+        known = fitted_has_loo[c]
+        loo[need[known]] = fitted_loo[c[known]]
+        fresh = need[~known]
+        x, y = _local_offsets(track, act, nb, offsets, fresh, direct)
+        for start in range(0, fresh.size, _CHUNK):
+            centre = fresh[start : start + _CHUNK]
+            tau_s = track.t[act[nb[centre]]] - track.t[act[centre]][:, None]
+            xc, yc = x[start : start + _CHUNK], y[start : start + _CHUNK]
+            lo = _fit_ratio(tau_s[:, None, :], xc[:, None, :], yc[:, None, :], leave_out, config)
+            loo[centre] = np.where(np.isfinite(lo), lo, ratio[centre][:, None])
+        c = act[fresh]
+        fitted_loo[c] = loo[fresh]
+        fitted_has_loo[c] = True
         # blame of each fix: own ratio + how much each neighbour's ratio drops without it
         blame = ratio.copy()
         for k in range(slots):
