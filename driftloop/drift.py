@@ -139,6 +139,11 @@ def reconstruct_ridge(ridge: Ridge) -> np.ndarray:
 
 
 def _time_ns(values: pd.Series) -> np.ndarray:
+    """Return the times as int64 ns since the epoch (UTC; naive times taken as UTC)."""
+    if isinstance(values, pd.Series) and (isinstance(values.dtype, pd.DatetimeTZDtype)
+                                          or values.dtype.kind == "M"):
+        # already datetimes: their UTC ns, as pd.to_datetime(utc=True) would give
+        return values.array.as_unit("ns").asi8.copy()
     return pd.DatetimeIndex(pd.to_datetime(values, utc=True)).as_unit("ns").asi8
 
 
@@ -385,10 +390,12 @@ def grid_step_counts(decomposed: pd.DataFrame) -> dict[int, int]:
     """
     if len(decomposed) < 2:
         return {}
-    codes = decomposed.groupby(["drifter_id", "segment"], sort=False,
-                               observed=True).ngroup().to_numpy(dtype=float)
-    keep = np.flatnonzero(np.isfinite(codes))
-    codes = codes[keep].astype(np.int64)
+    # segments numbered in the order they first appear (as groupby with
+    # sort=False meets them), rows with a missing key left out
+    ids = pd.factorize(decomposed["drifter_id"])[0].astype(np.int64)
+    segments = pd.factorize(decomposed["segment"])[0].astype(np.int64)
+    keep = np.flatnonzero((ids >= 0) & (segments >= 0))
+    codes = pd.factorize(ids[keep] * (int(segments.max()) + 1) + segments[keep])[0]
     t = _time_ns(decomposed["time"])[keep]
     order = np.lexsort((t, codes))  # by segment (first seen first), then time
     codes, t = codes[order], t[order]

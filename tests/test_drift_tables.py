@@ -158,3 +158,17 @@ def test_drifter_with_too_few_samples_has_no_dispersion(shuffled_track):
     decomposed = drift.decompose(shuffled_track, events=find_events(shuffled_track).events)
     rows = decomposed[decomposed["drifter_id"] == "A-1"].iloc[:2]
     assert drift.drifter_drift_statistics(rows, "A-1", [], DT)["dispersion"] is None
+
+
+@pytest.mark.parametrize("times", [
+    pd.Series(pd.date_range("2024-03-31", periods=30, freq="h", tz="UTC")),
+    pd.Series(pd.date_range("2024-03-31", periods=30, freq="h", tz="Europe/Paris").as_unit("us")),
+    pd.Series(pd.date_range("2024-03-31", periods=30, freq="h")),
+    pd.Series(["2024-03-31T00:00:00Z", "2024-03-31T01:30:00+01:00"]),
+], ids=["utc", "paris-us", "naive", "text"])
+def test_times_in_ns_are_those_of_pandas_to_datetime_utc(times):
+    # pandas.to_datetime(utc=True): aware times converted to UTC, naive ones taken as UTC
+    expected = pd.DatetimeIndex(pd.to_datetime(times, utc=True)).as_unit("ns").asi8
+    got = drift._time_ns(times)
+    assert got.dtype == np.int64
+    np.testing.assert_array_equal(got, expected)
