@@ -199,3 +199,36 @@ def test_feature_boxes_are_part_bounds_or_cross_the_antimeridian():
     boxes = [json.loads(t)["bbox"] for t in lines]
     assert boxes[0] == [10.123457, -5.5, 12.0, 3.25]  # shapely bounds rounded to 1e-6
     assert boxes[1] == [179.5, 10.0, -179.5, 11.0]  # RFC 7946 §5.2: west > east
+
+
+def test_geometries_conformed_together_are_those_conformed_one_by_one():
+    rng = np.random.default_rng(11)
+    geoms = [
+        shapely.LineString([(179.5, 10.0), (-179.5, 11.0)]),  # crosses: cut (RFC 7946 §3.1.9)
+        shapely.LineString([(10.0, 1.0), (11.0, 2.0), (12.0, 1.5)]),
+        shapely.LineString([(181.0, 1.0), (182.0, 2.0)]),  # wrapped into [-180, 180]
+        shapely.LineString([(1.0, 1.0, 5.0), (2.0, 2.0, 6.0)]),  # 3-D: written 2-D
+        shapely.LineString([(-90.0, 0.0), (89.9999995, 0.0)]),  # nearly 180 degrees apart
+        shapely.Polygon([(0, 0), (0, 10), (10, 10), (10, 0), (0, 0)]),  # clockwise
+        shapely.Polygon([(0, 0), (10, 0), (10, 10), (0, 0)], [[(6, 2), (8, 2), (8, 4), (6, 2)]]),
+        shapely.Polygon([(179.0, 0.0), (-179.0, 0.0), (-179.0, 1.0), (179.0, 1.0),
+                         (179.0, 0.0)]),  # crosses the antimeridian
+        shapely.MultiLineString([[(0, 0), (1, 1)], [(2, 2), (3, 1)]]),
+        shapely.Point(200.0, 5.0), None, shapely.LineString(),
+        *[shapely.LineString(np.column_stack([rng.uniform(-180, 180, 6), rng.uniform(-80, 80, 6)]))
+          for _ in range(20)],
+    ]
+    array = np.empty(len(geoms), dtype=object)
+    array[:] = geoms
+    together = gj.conform_geometries(array)
+    one_by_one = [gj.conform_geometry(g) for g in geoms]
+    assert [None if g is None else g.wkb for g in together] == \
+        [None if g is None else g.wkb for g in one_by_one]
+    for geom in together:
+        if geom is None:
+            continue
+        lon = shapely.get_coordinates(geom)[:, 0]
+        assert ((lon >= -180.0) & (lon <= 180.0)).all()
+        assert not shapely.has_z(geom)
+    assert together[0].geom_type == "MultiLineString"
+    assert _signed_area(shapely.get_coordinates(together[5])) > 0

@@ -75,6 +75,8 @@ _POINTS = ("Point", "MultiPoint")
 #: shapely type ids of points (Point, MultiPoint) and polygons (Polygon, MultiPolygon).
 _POINT_IDS = (0, 4)
 _POLYGON_IDS = (3, 6)
+#: shapely type ids of the other geometries written.
+_LINE_ID, _POLYGON_ID, _MULTIPOINT_ID, _MULTILINE_ID, _MULTIPOLYGON_ID = 1, 3, 4, 5, 6
 
 
 def _wrap_lon(lon: np.ndarray) -> np.ndarray:
@@ -102,15 +104,13 @@ def _wrap_array(geoms: Any) -> Any:
 
 def _crosses_antimeridian(geom: BaseGeometry) -> bool:
     """Whether consecutive vertices of any ring are more than 180° of longitude apart."""
-    rings = shapely.get_rings(shapely.get_parts(geom))
-    lon = shapely.get_coordinates(rings)[:, 0]
-    if lon.size < 2:
-        return False
-    step = np.abs(np.diff(lon)) > 180.0
-    # steps from the last vertex of one ring to the first of the next do not count
-    ends = np.cumsum(shapely.get_num_coordinates(rings))[:-1]
-    step[ends[(ends > 0) & (ends < lon.size)] - 1] = False
-    return bool(step.any())
+    polygons = geom.geoms if geom.geom_type == "MultiPolygon" else [geom]
+    for polygon in polygons:
+        for ring in (polygon.exterior, *polygon.interiors):
+            lon = np.asarray(ring.coords)[:, 0]
+            if lon.size > 1 and np.abs(np.diff(lon)).max() > 180.0:
+                return True
+    return False
 
 
 def _may_cross(line: BaseGeometry) -> bool:
@@ -222,9 +222,35 @@ def conform_geometries(geoms: Any) -> np.ndarray:
     points = np.isin(kinds, _POINT_IDS)
     if points.any():
         out[points] = _wrap_array(out[points])
-    for k in np.flatnonzero(present & ~points):
+    others = np.flatnonzero(present & ~points)
+    plain = others[_plain_shapes(out[others], kinds[others])]
+    lines = plain[kinds[plain] == _LINE_ID]
+    polygons = plain[kinds[plain] == _POLYGON_ID]
+    if polygons.size:  # conform_geometry orients them and changes nothing else
+        out[polygons] = shapely.orient_polygons(out[polygons], exterior_cw=False)
+    for k in np.setdiff1d(others, np.concatenate([lines, polygons])):
         out[k] = conform_geometry(out[k])
     return out
+
+
+def _plain_shapes(geoms: np.ndarray, kinds: np.ndarray) -> np.ndarray:
+    """Which LineStrings and Polygons :func:`conform_geometry` need neither wrap nor cut.
+
+    Those are 2-D with every longitude in [-180, 180] and no step between
+    consecutive coordinates (the junctions between rings included, which
+    only makes the test stricter) as wide as ``180 - 1e-6`` degrees.
+    """
+    plain = np.isin(kinds, (_LINE_ID, _POLYGON_ID)) & ~shapely.has_z(geoms)
+    if not plain.any():
+        return plain
+    xy, owner = shapely.get_coordinates(geoms, return_index=True)
+    lon = xy[:, 0]
+    with np.errstate(invalid="ignore"):
+        outside = (lon < -180.0) | (lon > 180.0)
+        wide = np.abs(np.diff(lon)) > 180.0 - 1e-6
+    plain[owner[outside]] = False
+    plain[owner[1:][wide & (owner[1:] == owner[:-1])]] = False
+    return plain
 
 
 def _object_array(geoms: Any) -> np.ndarray:
@@ -711,10 +737,6 @@ def _member_texts(name: str, values: list[Any]) -> list[str]:
     """``"name":value`` JSON texts of one property column (values from property_values)."""
     key = encode_basestring(name) + ":"
     return list(map(key.__add__, _value_texts(values)))
-
-
-#: shapely type ids of the geometries :func:`_geometry_texts` writes beside points.
-_LINE_ID, _POLYGON_ID, _MULTIPOINT_ID, _MULTILINE_ID, _MULTIPOLYGON_ID = 1, 3, 4, 5, 6
 
 
 def _geometry_texts(geoms: np.ndarray) -> list[str]:

@@ -38,7 +38,7 @@ import shapely
 from shapely.geometry.base import BaseGeometry
 
 from driftloop import geodesy
-from driftloop.export.geojson import conform_geometries, conform_geometry
+from driftloop.export.geojson import conform_geometries
 from driftloop.pipeline import FIXES_CSV_COLUMNS
 
 __all__ = [
@@ -154,10 +154,17 @@ def _points(lon: np.ndarray, lat: np.ndarray) -> np.ndarray:
 
 
 def _line(lon: np.ndarray, lat: np.ndarray) -> BaseGeometry | None:
-    """Conformed line through positions, or None for fewer than two distinct ones."""
+    """Line through positions (not yet conformed), or None for fewer than two distinct ones."""
     if lon.size < 2 or (np.ptp(lon) == 0.0 and np.ptp(lat) == 0.0):
         return None
-    return conform_geometry(shapely.LineString(np.column_stack([lon, lat])))
+    return shapely.linestrings(np.column_stack([lon, lat]))
+
+
+def _conformed(geoms: list[BaseGeometry | None]) -> np.ndarray:
+    """:func:`conform_geometry` of each geometry, done for all of them at once."""
+    array = np.empty(len(geoms), dtype=object)
+    array[:] = geoms
+    return conform_geometries(array)
 
 
 def fixes_layer(fixes: pd.DataFrame) -> gpd.GeoDataFrame:
@@ -242,6 +249,7 @@ def tracks_layer(tracks: pd.DataFrame) -> gpd.GeoDataFrame:
         speed = length_m / duration_s if duration_s > 0 else np.nan
         rows.append((drifter, segment, start, end, int(lon.size), length_m / 1000.0, speed))
         geoms.append(_line(lon, lat))
+    geoms = _conformed(geoms)
     properties = pd.DataFrame.from_records(rows, columns=list(TRACK_PROPERTIES))
     properties = properties.astype(
         {
@@ -314,7 +322,7 @@ def loops_layer(events: pd.DataFrame, tracks: pd.DataFrame) -> gpd.GeoDataFrame:
         lon = np.concatenate(lon_parts) if lon_parts else np.empty(0)
         lat = np.concatenate(lat_parts) if lat_parts else np.empty(0)
         geoms.append(_line(lon, lat))
-    return _frame(table.copy(), geoms)
+    return _frame(table.copy(), _conformed(geoms))
 
 
 def _utc_ns(value) -> np.datetime64:
@@ -491,10 +499,10 @@ def loop_shapes_layer(events: pd.DataFrame, n_vertices: int = SHAPE_VERTICES) ->
             lon[k], lat[k], axes[0] * 1000.0, axes[1] * 1000.0, axes[2], n_vertices
         )
         kinds.append(kind)
-        geoms.append(conform_geometry(shapely.Polygon(np.column_stack([ring_lon, ring_lat]))))
+        geoms.append(shapely.polygons(np.column_stack([ring_lon, ring_lat])))
     properties = table.copy()
     properties["shape_kind"] = pd.array(kinds, dtype="string")
-    return _frame(properties, geoms)
+    return _frame(properties, _conformed(geoms))
 
 
 def build_layers(tables: Mapping[str, pd.DataFrame]) -> dict[str, gpd.GeoDataFrame]:
