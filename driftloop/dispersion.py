@@ -724,8 +724,14 @@ def _time_scales(cov: np.ndarray, lags: np.ndarray, method: str,
     rows, r, usable, has_bad = rows[keep], r[keep], usable[keep], has_bad[keep]
     if rows.size == 0:
         return out
-    with np.errstate(invalid="ignore", over="ignore"):  # lags past a row's first NaN are unused
-        terms = 0.5 * (r[:, 1:] + r[:, :-1]) * np.diff(lags)
+
+    def trapezoid(stops: np.ndarray) -> np.ndarray:
+        """Trapezoidal integral of each row's R from lag 0 to lag ``stops``."""
+        m = int(stops.max())
+        with np.errstate(invalid="ignore", over="ignore"):  # lags past a row's NaN are unused
+            terms = 0.5 * (r[:, 1:m + 1] + r[:, :m]) * np.diff(lags[:m + 1])
+        return _prefix_sums(terms, stops)
+
     at = np.arange(rows.size)
     j_lag = np.arange(1, n_lags)  # lag index of column c of r[:, 1:]
     if method == "fixed_lag":
@@ -736,7 +742,7 @@ def _time_scales(cov: np.ndarray, lags: np.ndarray, method: str,
             first = int(np.flatnonzero(beyond & ~has_bad)[0])
             integral_time_scale(lags, r[first], method, fixed_lag_s=fixed_lag_s)  # raises
         j = np.minimum(int(np.searchsorted(lags, fixed_lag_s, side="right") - 1), usable - 2)
-        value = _prefix_sums(terms, np.where(beyond, usable - 1, j))
+        value = trapezoid(np.where(beyond, usable - 1, j))
         inside = ~beyond
         ji, ai = j[inside], at[inside]
         frac = (fixed_lag_s - lags[ji]) / (lags[ji + 1] - lags[ji])
@@ -746,7 +752,7 @@ def _time_scales(cov: np.ndarray, lags: np.ndarray, method: str,
         crossing = (r[:, 1:] <= 0) & (j_lag[None, :] < usable[:, None])
         found = crossing.any(axis=1)
         j = crossing.argmax(axis=1) + 1  # r[j] <= 0 < r[j-1] where found
-        value = _prefix_sums(terms, np.where(found, j - 1, usable - 1))
+        value = trapezoid(np.where(found, j - 1, usable - 1))
         jf, af = j[found], at[found]
         before, after = r[af, jf - 1], r[af, jf]
         tau0 = lags[jf - 1] + before / (before - after) * (lags[jf] - lags[jf - 1])
@@ -756,7 +762,7 @@ def _time_scales(cov: np.ndarray, lags: np.ndarray, method: str,
                    & (j_lag[None, :-1] < (usable - 1)[:, None]))
         found = minimum.any(axis=1)
         first = minimum.argmax(axis=1) + 1 if n_lags > 2 else usable
-        value = _prefix_sums(terms, np.where(found, first, usable - 1))
+        value = trapezoid(np.where(found, first, usable - 1))
     out[rows] = value
     return out
 
