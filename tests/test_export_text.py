@@ -145,18 +145,25 @@ def test_feature_properties_are_what_the_json_module_writes():
     rng = np.random.default_rng(3)
     n = 50
     layer = gpd.GeoDataFrame({
-        "name%s": pd.array([f'd"{k}\\\u00e9' if k % 7 else None for k in range(n)],
-                           dtype="string"),
+        "name%s": pd.array([f'd"{k}\\\u00e9\n' if k % 3 else "plain" if k % 7 else None
+                            for k in range(n)], dtype="string"),
+        "code": pd.array([f"c{k}" if k % 5 else None for k in range(n)], dtype="str"),
+        "n": pd.array([k if k % 4 else None for k in range(n)], dtype="Int64"),
+        "u": rng.integers(0, 2**63, n, dtype=np.uint64),
         "x": np.where(rng.random(n) < 0.2, np.nan, rng.normal(0, 1e3, n)),
         "k": rng.integers(-5, 5, n),
         "ok": rng.random(n) < 0.5,
         "t": pd.Timestamp("2026-03-01T00:00:00Z") + pd.to_timedelta(rng.integers(0, 10**6, n),
                                                                    unit="s"),
     }, geometry=[shapely.Point(*p) for p in rng.uniform(-50, 50, (n, 2))], crs="EPSG:4326")
-    lines, _ = gj._feature_lines(layer)
+    lines, geoms = gj._feature_lines(layer)
+    columns = [c for c in layer.columns if c != "geometry"]
+    assert gj._feature_list(layer, columns, geoms) == lines  # Python strings, no Arrow
     for line, (_, row) in zip(lines, layer.iterrows(), strict=True):
         props = {
             "name%s": None if pd.isna(row["name%s"]) else row["name%s"],
+            "code": None if pd.isna(row["code"]) else row["code"],
+            "n": None if pd.isna(row["n"]) else int(row["n"]), "u": int(row["u"]),
             "x": None if math.isnan(row["x"]) else float(row["x"]),
             "k": int(row["k"]), "ok": bool(row["ok"]),
             "t": row["t"].strftime("%Y-%m-%dT%H:%M:%SZ"),

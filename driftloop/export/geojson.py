@@ -707,10 +707,11 @@ def _value_texts(values: list[Any]) -> list[str]:
     return [_VALUE_TEXT[type(v)](v) for v in values]
 
 
-def _column_texts(series: pd.Series) -> list[str]:
+def _column_texts(series: pd.Series, arrow: bool = False) -> Any:
     """JSON texts of one property column: those of :func:`property_values`, made in Arrow.
 
-    Floats are Python's ``repr`` (as the json module writes them,
+    A list of str, or an Arrow array for float and time columns when
+    ``arrow`` is true.  Floats are Python's ``repr`` (as the json module writes them,
     :func:`driftloop.io.writers.float_reprs`) or ``null``; times their
     :func:`format_time` string in quotes (nothing in it needs escaping) or
     ``null``; other columns go through :func:`property_values`.
@@ -730,7 +731,46 @@ def _column_texts(series: pd.Series) -> list[str]:
         return _value_texts(property_values(series))
     if missing.any():
         text = pc.if_else(pa.array(missing), pa.scalar("null", pa.large_string()), text)
-    return text.to_pylist()
+    return text if arrow else text.to_pylist()
+
+
+_LARGE = pa.large_string()
+#: Characters the json module escapes in a string (ensure_ascii=False).
+_JSON_ESCAPED = r'[\x00-\x1f"\\]'
+
+
+def _large(text: str) -> pa.Scalar:
+    return pa.scalar(text, _LARGE)
+
+
+def _column_array(series: pd.Series) -> pa.Array:
+    """:func:`_column_texts` of a column as an Arrow ``large_string`` array.
+
+    Integers are their decimal text, booleans ``true`` or ``false``,
+    strings are quoted, with the json module's escapes where a string holds
+    a quote, a backslash or a control character (``null`` where missing).
+    """
+    dtype = series.dtype
+    if isinstance(dtype, np.dtype) and dtype.kind in "iu":
+        return pc.cast(pa.array(series.to_numpy()), _LARGE)
+    if isinstance(dtype, np.dtype) and dtype.kind == "b":
+        return pc.if_else(pa.array(series.to_numpy()), _large("true"), _large("false"))
+    if isinstance(dtype, pd.StringDtype):
+        array = pa.array(series.array)
+        if isinstance(array, pa.ChunkedArray):
+            array = array.combine_chunks()
+        array = array.cast(_LARGE)
+        text = pc.binary_join_element_wise(_large('"'), array, _large('"'), _large(""))
+        escaped = np.asarray(pc.fill_null(pc.match_substring_regex(array, _JSON_ESCAPED), False),
+                             dtype=bool)
+        if escaped.any():
+            values = np.asarray(array.to_pylist(), dtype=object)[escaped]
+            text = pc.replace_with_mask(text, pa.array(escaped),
+                                        pa.array([encode_basestring(v) for v in values], _LARGE))
+        return pc.fill_null(text, _large("null"))
+    if pd.api.types.is_float_dtype(dtype) or pd.api.types.is_datetime64_any_dtype(dtype):
+        return _column_texts(series, arrow=True)
+    return pa.array(_value_texts(property_values(series)), _LARGE)
 
 
 def _member_texts(name: str, values: list[Any]) -> list[str]:
@@ -850,8 +890,9 @@ def geojson_text(
     ValueError
         If the layer has a CRS other than WGS 84 longitude/latitude.
     """
-    lines, geoms = _feature_lines(layer)
-    features = "\"features\":[\n" + ",\n".join(lines) + "\n]" if lines else '"features":[]'
+    lines, geoms = _feature_array(layer)
+    features = ("\"features\":[\n" + _joined(lines, ",\n") + "\n]" if len(lines)
+                else '"features":[]')
     return _head(name, provenance, geojson_bbox(geoms)) + features + "}\n"
 
 
@@ -876,10 +917,84 @@ def _head(name: str | None, provenance: Mapping[str, Any] | None,
 
 def _feature_lines(layer: gpd.GeoDataFrame) -> tuple[list[str], np.ndarray]:
     """One text line per feature, and the conformed, rounded geometries."""
+    lines, geoms = _feature_array(layer)
+    return lines.to_pylist(), geoms
+
+
+def _joined(lines: pa.Array, separator: str) -> str:
+    """Join the texts of an Arrow string array by a separator."""
+    if len(lines) == 0:
+        return ""
+    ended = pc.binary_join_element_wise(lines, _large(""), _large(separator))
+    offsets = np.frombuffer(ended.buffers()[1], dtype=np.int64)[ended.offset:]
+    data = ended.buffers()[2]
+    text = data[int(offsets[0]):int(offsets[len(ended)])].to_pybytes().decode("utf-8")
+    return text[: len(text) - len(separator)]
+
+
+def _point_array(geoms: np.ndarray) -> pa.Array | None:
+    """Geometry texts of a layer whose geometries are points or missing, in Arrow; else None."""
+    present = ~shapely.is_missing(geoms)
+    kinds = shapely.get_type_id(geoms[present])
+    if not (kinds == 0).all():
+        return None
+    xy = shapely.get_coordinates(geoms[present])
+    if len(xy) != int(present.sum()):
+        return None
+    text, ends = _position_runs(xy)
+    data = text.encode("ascii")
+    offsets = np.concatenate([[0], np.asarray(ends, dtype=np.int64)])
+    runs = pa.LargeStringArray.from_buffers(len(xy), pa.py_buffer(offsets.tobytes()),
+                                            pa.py_buffer(data))
+    points = pc.binary_join_element_wise(_large('{"type":"Point","coordinates":'),
+                                         pc.utf8_slice_codeunits(runs, 1), _large("}"),
+                                         _large(""))
+    if present.all():
+        return points
+    out = pc.replace_with_mask(pa.nulls(len(geoms), _LARGE), pa.array(present), points)
+    return pc.fill_null(out, _large("null"))
+
+
+def _feature_array(layer: gpd.GeoDataFrame) -> tuple[pa.Array, np.ndarray]:
+    """:func:`_feature_lines` as an Arrow array: the lines assembled column-wise in Arrow.
+
+    Tables Arrow cannot hold (strings with lone surrogates) go through
+    :func:`_feature_list`.
+    """
     _check_crs(layer)
     geometry_name = layer.geometry.name
     columns = [c for c in layer.columns if c != geometry_name]
     geoms = _round_geometries(conform_geometries(layer.geometry))
+    try:
+        values = [_column_array(layer[c]) for c in columns]
+        geometry = _point_array(geoms)
+        if geometry is None:
+            geometry = pa.array(_geometry_texts(geoms), _LARGE)
+    except (pa.ArrowException, UnicodeError):
+        return pa.array(_feature_list(layer, columns, geoms), _LARGE), geoms
+    keys = [encode_basestring(str(c)) + ":" for c in columns]
+    pieces = []
+    for k, (key, value) in enumerate(zip(keys, values, strict=True)):
+        pieces += [_large(("" if k else '{"type":"Feature","properties":{') + ("," if k else "")
+                          + key), value]
+    pieces += [_large(("}" if columns else '{"type":"Feature","properties":{}')
+                      + ',"geometry":'), geometry, _large("}")]
+    lines = pc.binary_join_element_wise(*pieces, _large(""))
+    present = ~shapely.is_missing(geoms)
+    kinds = np.full(len(geoms), -1)
+    kinds[present] = shapely.get_type_id(geoms[present])
+    boxed = present & ~np.isin(kinds, _POINT_IDS)
+    if boxed.any():
+        head = '{"type":"Feature",'
+        framed = pc.take(lines, pa.array(np.flatnonzero(boxed))).to_pylist()
+        texts = [head + '"bbox":' + box + "," + line[len(head):]
+                 for box, line in zip(_bbox_texts(geoms[boxed]), framed, strict=True)]
+        lines = pc.replace_with_mask(lines, pa.array(boxed), pa.array(texts, _LARGE))
+    return lines, geoms
+
+
+def _feature_list(layer: gpd.GeoDataFrame, columns: list, geoms: np.ndarray) -> list[str]:
+    """Format the feature lines as Python strings (for tables Arrow cannot hold)."""
     texts = _geometry_texts(geoms)
     # each line is a %-template of the member keys filled with the value texts
     members = ",".join(encode_basestring(str(c)).replace("%", "%%") + ":%s" for c in columns)
@@ -894,7 +1009,7 @@ def _feature_lines(layer: gpd.GeoDataFrame) -> tuple[list[str], np.ndarray]:
         framed = '{"type":"Feature","bbox":%s,"properties":{' + members + '},"geometry":%s}'
         for k, box in zip(boxed.tolist(), _bbox_texts(geoms[boxed]), strict=True):
             lines[k] = framed % (box, *[column[k] for column in columns_text], texts[k])
-    return lines, geoms
+    return lines
 
 
 def feature_text(layer: gpd.GeoDataFrame) -> tuple[str, int, np.ndarray | None]:
@@ -918,8 +1033,8 @@ def feature_text(layer: gpd.GeoDataFrame) -> tuple[str, int, np.ndarray | None]:
     _check_crs(layer)
     if len(layer) == 0:
         return "", 0, None
-    lines, geoms = _feature_lines(layer)
-    return ",\n".join(lines), len(lines), _boxes(geoms)
+    lines, geoms = _feature_array(layer)
+    return _joined(lines, ",\n"), len(lines), _boxes(geoms)
 
 
 class GeoJSONWriter:
