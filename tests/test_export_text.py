@@ -239,3 +239,20 @@ def test_geometries_conformed_together_are_those_conformed_one_by_one():
         assert not shapely.has_z(geom)
     assert together[0].geom_type == "MultiLineString"
     assert _signed_area(shapely.get_coordinates(together[5])) > 0
+
+
+def test_points_are_rounded_to_the_grid_as_geos_set_precision_does():
+    rng = np.random.default_rng(5)
+    n = 100_000
+    k = rng.integers(-180_000_000, 180_000_000, n).astype(float)
+    halves = (k + 0.5) / 1e6
+    near = np.concatenate([halves + d * np.spacing(halves) for d in range(-3, 4)])
+    near = near[near * 1e6 == np.floor(near * 1e6) + 0.5]  # products exactly at a half
+    x = np.concatenate([rng.uniform(-180, 180, n), rng.normal(0, 1e-5, n), near, -near,
+                        [0.0, -0.0, -1e-7, 4e-7, -5e-7, 180.0, -180.0]])
+    y = rng.permutation(np.resize(x, x.size))
+    geoms = shapely.points(x, y)
+    geos = shapely.get_coordinates(shapely.set_precision(geoms, 1e-6))  # the reference
+    ours = shapely.get_coordinates(gj._round_geometries(geoms))
+    assert near.size > 1000
+    assert np.array_equal(ours.view(np.int64), geos.view(np.int64))  # bit for bit, -0.0 too

@@ -261,6 +261,23 @@ def _object_array(geoms: Any) -> np.ndarray:
     return np.array(list(values), dtype=object)
 
 
+def _grid_round(values: np.ndarray) -> np.ndarray:
+    """Round finite coordinates to the 1e-6 degree grid exactly as GEOS does.
+
+    GEOS's ``PrecisionModel::makePrecise`` for a grid finer than 1 (which
+    :func:`shapely.set_precision` uses) rounds ``value * scale`` half up,
+    as Java's ``Math.round`` does, and divides by ``scale``; here
+    ``scale = 1e6``.
+    """
+    scale = 10.0**COORDINATE_DECIMALS
+    v = np.asarray(values, dtype=float) * scale
+    whole = np.trunc(v)
+    frac = np.abs(v - whole)
+    up = np.where(frac < 0.5, np.floor(v), np.where(frac > 0.5, np.ceil(v), whole + 1.0))
+    down = np.where(frac < 0.5, np.ceil(v), np.where(frac > 0.5, np.floor(v), whole))
+    return np.where(v >= 0.0, up, down) / scale
+
+
 def _round_geometries(geoms: np.ndarray) -> np.ndarray:
     """Snap coordinates to the 1e-6 degree grid, keeping geometries valid.
 
@@ -272,7 +289,17 @@ def _round_geometries(geoms: np.ndarray) -> np.ndarray:
     present = ~shapely.is_missing(out)
     if not present.any():
         return out
-    out[present] = shapely.set_precision(out[present], 10.0**-COORDINATE_DECIMALS)
+    rest = present.copy()
+    points = np.zeros(out.shape, dtype=bool)
+    points[present] = shapely.get_type_id(out[present]) == 0
+    if points.any() and not shapely.has_z(out[points]).any():
+        xy = shapely.get_coordinates(out[points])
+        if len(xy) == points.sum() and np.isfinite(xy).all():
+            # set_precision moves a point to the grid and does nothing else
+            out[points] = shapely.points(_grid_round(xy))
+            rest &= ~points
+    if rest.any():
+        out[rest] = shapely.set_precision(out[rest], 10.0**-COORDINATE_DECIMALS)
     present[present] = ~shapely.is_empty(out[present])
     out[~present] = None
     polygons = np.zeros(out.shape, dtype=bool)
