@@ -295,8 +295,12 @@ def _round_geometries(geoms: np.ndarray) -> np.ndarray:
     if points.any() and not shapely.has_z(out[points]).any():
         xy = shapely.get_coordinates(out[points])
         if len(xy) == points.sum() and np.isfinite(xy).all():
-            # set_precision moves a point to the grid and does nothing else
-            out[points] = shapely.points(_grid_round(xy))
+            # set_precision moves a point to the grid and does nothing else;
+            # points already on it (bit for bit) are kept as they are
+            grid = _grid_round(xy)
+            moved = (grid.view(np.int64) != xy.view(np.int64)).any(axis=1)
+            if moved.any():
+                out[np.flatnonzero(points)[moved]] = shapely.points(grid[moved])
             rest &= ~points
     if rest.any():
         out[rest] = shapely.set_precision(out[rest], 10.0**-COORDINATE_DECIMALS)
