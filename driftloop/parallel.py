@@ -24,6 +24,7 @@ import contextlib
 import logging
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any
 
 from driftloop.errors import InputError
@@ -37,14 +38,30 @@ IN_FLIGHT_PER_THREAD = 3
 class Executor:
     """Runs functions on items, in this process or on a Dask client, results in order."""
 
-    def __init__(self, client: Any = None) -> None:
-        self.client = client
-        #: Worker threads (1 in this process).
-        self.threads = 1 if client is None else max(1, sum(client.nthreads().values()))
+    def __init__(self, client: Any = None, starting: Future | None = None) -> None:
+        self._client = client
+        self._starting = starting
         self._warming: list = []
+
+    @property
+    def client(self) -> Any:
+        """The Dask client (None in this process); waits for a cluster still starting."""
+        if self._starting is not None:
+            self._client = self._starting.result()  # raises what the start raised
+            self._starting = None
+        return self._client
+
+    @property
+    def threads(self) -> int:
+        """Worker threads (1 in this process)."""
+        client = self.client
+        return 1 if client is None else max(1, sum(client.nthreads().values()))
 
     def warm_up(self, func: Callable[..., Any], *args: Any) -> None:
         """Run ``func(*args)`` once on every worker, without waiting for it.
+
+        If the cluster is still starting, the calls are made as soon as it
+        is up.
 
         Parameters
         ----------
@@ -53,11 +70,20 @@ class Executor:
         *args
             Its arguments.
         """
-        if self.client is None:
+        if self._starting is not None:
+            def later(started: Future) -> None:
+                if not started.cancelled() and started.exception() is None:
+                    self._submit_warm_up(started.result(), func, args)
+
+            self._starting.add_done_callback(later)
             return
-        for address in self.client.scheduler_info()["workers"]:
-            self._warming.append(self.client.submit(func, *args, workers=[address],
-                                                    pure=False, allow_other_workers=False))
+        if self._client is not None:
+            self._submit_warm_up(self._client, func, args)
+
+    def _submit_warm_up(self, client: Any, func: Callable[..., Any], args: tuple) -> None:
+        for address in client.scheduler_info()["workers"]:
+            self._warming.append(client.submit(func, *args, workers=[address],
+                                               pure=False, allow_other_workers=False))
 
     def map(self, func: Callable[..., Any], items: Iterable[Any], args: tuple = ()
             ) -> Iterator[Any]:
@@ -85,7 +111,9 @@ class Executor:
         threads = max(1, sum(client.nthreads().values()))
         limit = IN_FLIGHT_PER_THREAD * threads
         pending: deque = deque()
-        shared = client.scatter(list(args), broadcast=True) if args else []
+        # hash=False: keys made from the content would be shared with another map of
+        # the same arguments, whose end releases the data this one still needs
+        shared = client.scatter(list(args), broadcast=True, hash=False) if args else []
         try:
             for item in items:
                 pending.append(client.submit(func, item, *shared, pure=False))
@@ -125,8 +153,20 @@ def executor(workers: int = 1, scheduler: str | None = None) -> Iterator[Executo
     if scheduler is None and workers == 1:
         yield Executor()
         return
-    with _client(workers, scheduler) as client:
-        yield Executor(client)
+    # the cluster starts (or the scheduler is reached) in a thread of its own
+    # while the caller goes on, e.g. reading the inputs; the first use of the
+    # executor's client waits for it
+    stack = contextlib.ExitStack()
+    pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="driftloop-cluster")
+    try:
+        yield Executor(starting=pool.submit(stack.enter_context, _client(workers, scheduler)))
+    finally:
+        # closed in the thread that opened it (the client keeps context
+        # variables of that thread)
+        try:
+            pool.submit(stack.close).result()
+        finally:
+            pool.shutdown(wait=True)
 
 
 def ordered_map(func: Callable[..., Any], items: Iterable[Any], *, args: tuple = (),
@@ -175,8 +215,11 @@ def _client(workers: int, scheduler: str | None):
         finally:
             client.close()
         return
+    # no dashboard; the scheduler's small HTTP server (health, metrics) takes a
+    # free port, so that runs at the same time do not compete for 8787
     cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                            host="127.0.0.1", dashboard_address=None,
+                           scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
                            silence_logs=logging.ERROR)
     try:
         with Client(cluster) as client:

@@ -11,10 +11,15 @@
    resampling, the loop catalogue, the drift decomposition and the spectra
    (:func:`process_batch`, in this process or on Dask workers, see
    :mod:`driftloop.parallel`); the results are taken in drifter order and
-   appended to the outputs (resampled and loop tables, GIS layers), and the
-   flagged rows go back to the temporary file;
-3. **fixes** -- the flagged rows are put back in input order, one read
-   chunk at a time, and appended to ``fixes.csv`` and the fixes layer;
+   appended to the outputs (resampled and loop tables, GIS layers).  When
+   each drifter's rows lie together in the input (the usual layout) and no
+   GeoPackage or GeoParquet layer is asked for, the same call also formats
+   the drifter's flagged rows for ``fixes.csv`` and the fixes layer, one run
+   of consecutive input rows at a time, and only that text comes back to a
+   temporary file; otherwise the flagged rows themselves go back to it;
+3. **fixes** -- the formatted runs are appended to ``fixes.csv`` and the
+   fixes layer in input order; or the flagged rows are put back in input
+   order, one read chunk at a time, formatted (on the workers) and appended;
 4. **release** -- the summary, spectra and drift statistics of the release
    are finished from what was accumulated, and every file is renamed into
    place in the order of :meth:`Analysis.write`, ``provenance.json`` last.
@@ -61,6 +66,10 @@ BATCH_DRIFTERS = 32
 
 #: Batches per worker thread (at least) in a parallel run, for an even load.
 IN_FLIGHT_BATCHES = 6
+
+#: Runs of consecutive input rows per drifter (on average) up to which the
+#: workers format the fixes outputs themselves.
+DIRECT_RUNS_PER_DRIFTER = 4
 
 _KINDS = ("inertial", "eddy", "tidal", "other")
 
@@ -268,10 +277,12 @@ class BatchResult:
     layers: dict = field(default_factory=dict)
     tables: dict = field(default_factory=dict)
     obs: dict | None = None
+    fixes_runs: list | None = None
+    track_info: dict = field(default_factory=dict)
 
 
 def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, stages: str,
-             formats: tuple) -> BatchResult:
+             formats: tuple, fixes: tuple | None = None) -> BatchResult:
     from driftloop.qc import run_qc
     from driftloop.summary import SummaryAccumulator
 
@@ -292,11 +303,19 @@ def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, s
         tables = [rows for _, rows in batch]
         flagged = run_qc(tables[0] if len(tables) == 1 else pd.concat(tables), config.qc)
         summary.add_drifters(flagged, [(drifter, len(rows)) for drifter, rows in batch])
+        bounds = np.cumsum([0] + [len(rows) for rows in tables]).tolist()
+        parts = [flagged.iloc[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
         lap("qc")
         result = BatchResult([d for d, _ in batch], flagged, summary, timer)
+        if fixes is not None:
+            result.fixes_runs = [render_run(run, *fixes, formats) for run in _runs(parts)]
+            lap("write")
         if stages == "qc":
+            result.flagged = None if fixes is not None else flagged
             return result
         _later_stages(result, config, formats, lap)
+        if fixes is not None:
+            result.flagged = None  # rendered above: the rows need not travel back
         timer["transform"] = timer.pop("_transform", 0.0)
         detect_s = timer.pop("_detect", 0.0)
         timer["ridges"] = max(detect_s - timer["transform"], 0.0)
@@ -373,7 +392,28 @@ def _later_stages(result: BatchResult, config: Config, formats: tuple, lap) -> N
         from driftloop.io.trajectory_nc import obs_columns
 
         result.obs = obs_columns(track)
+    result.track_info = _track_info(track)
+    result.track = None  # what the release needs of it is in track_info, tables and obs
     lap("layers")
+
+
+def _track_info(track: pd.DataFrame) -> dict:
+    """Count what the release summary and ``resampled.nc`` need of a batch's resampled rows."""
+    info = {"rows": int(len(track)), "points": {}, "segments": 0,
+            "in_gap": int(track["in_gap"].sum()) if len(track) else 0, "trajectories": []}
+    if not len(track):
+        return info
+    ids = track["drifter_id"].astype(str).to_numpy()
+    seg = track["segment"].to_numpy()
+    new = np.r_[True, (seg[1:] != seg[:-1]) | (ids[1:] != ids[:-1])]
+    starts = np.flatnonzero(new)
+    counts = np.diff(np.r_[starts, seg.size])
+    info["trajectories"] = [(d, int(s_), int(n)) for d, s_, n in zip(
+        ids[starts].tolist(), seg[starts].tolist(), counts.tolist(), strict=True)]
+    for d, n in zip(*np.unique(ids, return_counts=True), strict=True):
+        info["points"][str(d)] = int(n)
+    info["segments"] = int(track.groupby(["drifter_id", "segment"], observed=True).ngroups)
+    return info
 
 
 def _warm_up(config: Config) -> None:
@@ -393,7 +433,8 @@ def _warm_up(config: Config) -> None:
 
 
 def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config,
-                  stages: str = "all", formats: tuple = ()) -> BatchResult:
+                  stages: str = "all", formats: tuple = (), fixes: tuple | None = None
+                  ) -> BatchResult:
     """Run the per-drifter stages on a batch of drifters.
 
     QC and the later stages run on the batch's table,
@@ -414,6 +455,12 @@ def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Conf
         Export formats (as :class:`driftloop.export.stream.StreamExport`
         takes them); the layers of the tracks and events and the CSV text of
         the tables are prepared for them.  Empty: no export.
+    fixes : tuple, optional
+        ``(attrs, columns, max_problems)`` as :func:`render_fixes` takes
+        them: the flagged rows are formatted for ``fixes.csv`` and the fixes
+        layer here, one run of consecutive input rows at a time
+        (:attr:`BatchResult.fixes_runs`, see :func:`render_run`), and are not
+        returned (``flagged`` is None).
 
     Returns
     -------
@@ -421,7 +468,58 @@ def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Conf
         The batch's flagged rows, tables and per-drifter values.
     """
     _install_hooks()
-    return _process(batch, config, stages, formats)
+    return _process(batch, config, stages, formats, fixes)
+
+
+def _runs(parts: Sequence[pd.DataFrame]) -> Iterator[pd.DataFrame]:
+    """Split each drifter's flagged rows into runs of consecutive input rows."""
+    for part in parts:
+        if not len(part):
+            continue
+        pos = part.index.to_numpy()
+        cuts = np.flatnonzero(np.diff(pos) != 1) + 1
+        bounds = np.r_[0, cuts, pos.size]
+        for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True):
+            yield part.iloc[a:b]
+
+
+def render_run(table: pd.DataFrame, attrs: dict, columns: tuple, max_problems: int,
+               formats: tuple) -> dict:
+    """Format a run of consecutive input rows of one drifter for the fixes outputs.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Flagged rows whose index (input position) counts up by one.
+    attrs, columns, max_problems
+        As for :func:`render_fixes`.
+    formats : tuple of str
+        Export formats; empty when only QC ran.
+
+    Returns
+    -------
+    dict
+        :func:`render_fixes`' result with ``start`` (input position of the
+        first row) and, instead of a ``layer``, its GeoJSON parts as bytes:
+        ``geojson`` (UTF-8 feature text, or None), ``geojson_count`` and
+        ``boxes`` (``.npy`` bytes or None).  The formats must not include
+        the GeoPackage or GeoParquet ones.
+    """
+    formats = tuple(f for f in formats if f in ("geojson", "csv"))
+    out = render_fixes(table, attrs, columns, formats, max_problems)
+    out["start"] = int(table.index[0])
+    layer = out.pop("layer")
+    out["geojson"] = out["boxes"] = None
+    out["geojson_count"] = 0
+    if layer is not None and layer.get("geojson") is not None:
+        text, count, boxes = layer["geojson"]
+        out["geojson"], out["geojson_count"] = text.encode("utf-8"), count
+        if boxes is not None:
+            buffer = io.BytesIO()
+            np.save(buffer, np.asarray(boxes), allow_pickle=False)
+            out["boxes"] = buffer.getvalue()
+    out["csv"] = out["csv"].encode("utf-8")
+    return out
 
 
 # ---------------------------------------------------------------------------
@@ -472,6 +570,15 @@ def _read_pass(paths: Sequence[Path], config: Config, spool: _Spool):
     info = []
     row = 0
     attrs: dict | None = None
+    last: dict[Any, int] = {}  # last input position of each drifter so far
+    runs = 0  # runs of consecutive input rows of one drifter
+
+    def count_runs(key, first: int, end: int, breaks: int = 0) -> None:
+        # a piece of a drifter's rows from input position first to end - 1,
+        # broken `breaks` times; it continues the drifter's last run or not
+        nonlocal runs
+        runs += breaks + int(last.get(key, -2) + 1 != first)
+        last[key] = end - 1
     for path in sorted(paths, key=str):
         table = read_file(path, config.read)
         info.append({"file": str(path), "rows": len(table)})
@@ -493,13 +600,17 @@ def _read_pass(paths: Sequence[Path], config: Config, spool: _Spool):
             first = ids.iloc[0]
             if pd.notna(first) and bool((ids == first).all()):  # one drifter: no split
                 index.setdefault(str(first), []).append(spool.put(piece))
+                count_runs(str(first), row - take, row)
                 continue
             for key, group in piece.groupby("drifter_id", sort=False, observed=True,
                                              dropna=False):
                 key = None if pd.isna(key) else str(key)
                 index.setdefault(key, []).append(spool.put(group))
+                at = group.index.to_numpy()
+                count_runs(key, int(at[0]), int(at[-1]) + 1,
+                           int(np.count_nonzero(np.diff(at) != 1)))
         del table
-    return index, chunks, info, row, attrs or {}
+    return index, chunks, info, row, attrs or {}, runs
 
 
 def _batches(index: dict, spool: _Spool, most: int = BATCH_DRIFTERS
@@ -614,7 +725,8 @@ def run(
         ex = stack.enter_context(executor(workers, scheduler))
         ex.warm_up(_warm_up, config)  # the workers load driftloop while the inputs are read
         clock = time.perf_counter()
-        index, chunks, info, n_rows, attrs = _read_pass([Path(p) for p in paths], config, raw)
+        index, chunks, info, n_rows, attrs, n_runs = _read_pass([Path(p) for p in paths],
+                                                                config, raw)
         timings["read"] = time.perf_counter() - clock
         if n_rows == 0:
             return _whole_table_fallback(paths, out, config, stages, formats, protect, wall)
@@ -638,18 +750,31 @@ def run(
             bar = tqdm(total=n_drifters, desc="drifters", unit="drifter", leave=False,
                        disable=None)
         export_formats = tuple(export.formats) if export is not None else ()
+        # input grouped by drifter (the usual case): the workers format the
+        # fixes outputs too, run by run; otherwise (rows of drifters
+        # interleaved) the flagged rows come back and are formatted in input
+        # order, a chunk at a time
+        # (the GeoPackage and GeoParquet layers want the fixes in large
+        # chunks, so with them the flagged rows come back too)
+        direct = (n_runs <= DIRECT_RUNS_PER_DRIFTER * max(n_drifters, 1)
+                  and not (export is not None and export.needs_frames))
+        fixes_args = (attrs, tuple(FIXES_CSV_COLUMNS), max_problems) if direct else None
+        fixes_runs: list[_SpooledRun] = []
         # enough batches to keep every worker busy to the end
         most = BATCH_DRIFTERS if ex.threads == 1 else max(
             1, min(BATCH_DRIFTERS, -(-n_drifters // (IN_FLIGHT_BATCHES * ex.threads))))
         for result in ex.map(process_batch, _batches(index, raw, most),
-                             args=(config, stages, export_formats)):
+                             args=(config, stages, export_formats, fixes_args)):
             start = time.perf_counter()
             for stage, seconds in result.timings.items():
                 timings[stage] = timings.get(stage, 0.0) + seconds
-            flagged = result.flagged
-            which = np.searchsorted(starts, flagged.index.to_numpy(), side="right") - 1
-            for c in np.unique(which):
-                by_chunk[c].append(flagged_spool.put(flagged[which == c]))
+            if result.fixes_runs is not None:
+                fixes_runs.extend(_SpooledRun.put(r, flagged_spool) for r in result.fixes_runs)
+            else:
+                flagged = result.flagged
+                which = np.searchsorted(starts, flagged.index.to_numpy(), side="right") - 1
+                for c in np.unique(which):
+                    by_chunk[c].append(flagged_spool.put(flagged[which == c]))
             state.add(result, export)
             timings["write"] = timings.get("write", 0.0) + time.perf_counter() - start
             if bar is not None:
@@ -657,8 +782,11 @@ def run(
         if bar is not None:
             bar.close()
         clock = time.perf_counter()
-        fixes_csv = _fixes_pass(ex, out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS, export,
-                                max_problems, attrs)
+        if direct:
+            fixes_csv = _write_runs(out, fixes_runs, flagged_spool, export, max_problems, n_rows)
+        else:
+            fixes_csv = _fixes_pass(ex, out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS,
+                                    export, max_problems, attrs)
         writers.append(fixes_csv.appender)
         summary, spectra = state.finish(info, fixes_csv.rows)
         if check is not None:
@@ -764,6 +892,57 @@ def render_fixes(table: pd.DataFrame, attrs: dict, columns: tuple, formats: tupl
     return out
 
 
+@dataclass
+class _SpooledRun:
+    """A run of :func:`render_run`, its text and bytes kept in a spool."""
+
+    start: int
+    rows: int
+    problems: pd.DataFrame
+    problem_count: int
+    geojson_count: int
+    parts: tuple  # spool places of csv, geojson, boxes (None where absent)
+
+    @classmethod
+    def put(cls, run: dict, spool: _Spool) -> _SpooledRun:
+        parts = tuple(None if run[k] is None else spool._write(run[k])
+                      for k in ("csv", "geojson", "boxes"))
+        return cls(run["start"], run["rows"], run["problems"], run["problem_count"],
+                   run["geojson_count"], parts)
+
+    def get(self, spool: _Spool) -> tuple:
+        return tuple(None if where is None else spool._read(where) for where in self.parts)
+
+
+def _write_runs(out: Path, runs: list[_SpooledRun], spool: _Spool, export, max_problems: int,
+                n_rows: int) -> _FixesPass:
+    """Write ``fixes.csv`` and the fixes layer from runs formatted by the workers."""
+    from driftloop.io.writers import CsvAppender
+
+    runs = sorted(runs, key=lambda r: r.start)
+    ends = np.cumsum([r.rows for r in runs])
+    if (not runs or int(ends[-1]) != n_rows
+            or any(r.start != int(e) - r.rows for r, e in zip(runs, ends, strict=True))):
+        raise RuntimeError("the formatted runs of fixes do not cover the input rows once")
+    appender = CsvAppender(out / "fixes.csv")
+    try:
+        for item in runs:
+            csv, geojson, boxes = item.get(spool)
+            appender.append_text(csv.decode("utf-8"), item.rows)
+            if export is not None and geojson is not None:
+                if boxes is not None:
+                    boxes = np.load(io.BytesIO(boxes), allow_pickle=False)
+                export.add_geojson_text("fixes", geojson.decode("utf-8"), item.geojson_count,
+                                        boxes)
+    except BaseException:
+        appender.abort()
+        raise
+    heads = [r.problems for r in runs if len(r.problems)]
+    bad = (pd.concat(heads) if len(heads) > 1 else heads[0]) if heads else runs[0].problems
+    count = sum(r.problem_count for r in runs)
+    return _FixesPass(appender, appender.rows, bad.head(max_problems), count)
+
+
 def _fixes_chunks(by_chunk, spool: _Spool) -> Iterator[pd.DataFrame]:
     for offsets in by_chunk:
         parts = [spool.get(o) for o in offsets]
@@ -838,9 +1017,9 @@ class _ReleaseState:
         self.summary.merge(result.summary)
         if not self.analyse:
             return
-        track, events = result.track, result.events
-        track_ids = track["drifter_id"].astype(str).to_numpy() if len(track) else None
+        info, events = result.track_info, result.events
         event_ids = events["drifter_id"].astype(str).to_numpy() if len(events) else None
+        event_kinds = events["kind"].to_numpy(dtype=object) if len(events) else None
         dropped_by: dict[str, int] = {}
         for item in result.dropped:
             key = str(item.get("drifter_id"))
@@ -849,21 +1028,20 @@ class _ReleaseState:
             if drifter is None:
                 continue
             if event_ids is not None:
-                kinds = events["kind"][(event_ids == drifter)]
-                counts = {k: int((kinds == k).sum()) for k in _KINDS}
+                kinds = event_kinds[event_ids == drifter]
+                counts = {k: int(np.count_nonzero(kinds == k)) for k in _KINDS}
             else:
                 counts = dict.fromkeys(_KINDS, 0)
             self.entries[drifter] = {
                 "events": counts,
-                "resampled_points": 0 if track_ids is None else int((track_ids == drifter).sum()),
+                "resampled_points": info["points"].get(drifter, 0),
                 "dropped_segments": dropped_by.get(drifter, 0),
                 "inertial_peak": result.peaks.get(
                     drifter, {"checked": False, "reason": "no resampled segment"}),
             }
-        self.resample["points"] += int(len(track))
-        self.resample["segments"] += int(track.groupby(["drifter_id", "segment"],
-                                                       observed=True).ngroups)
-        self.resample["points_in_gaps"] += int(track["in_gap"].sum())
+        self.resample["points"] += info["rows"]
+        self.resample["segments"] += info["segments"]
+        self.resample["points_in_gaps"] += info["in_gap"]
         self.resample["dropped"].extend(result.dropped)
         self.loops["ridges"] += result.ridges
         self.loops["events"] += int(len(events))
@@ -887,14 +1065,8 @@ class _ReleaseState:
             offset = self.pooled_spool.put_arrays(
                 [pooled[n] for n in (*_POOLED, "time_ns")] + list(result.series[drifter]))
             self.pooled_offsets.append((drifter, offset))
-        if len(track):
-            seg = track["segment"].to_numpy()
-            new = np.r_[True, (seg[1:] != seg[:-1]) | (track_ids[1:] != track_ids[:-1])]
-            starts = np.flatnonzero(new)
-            counts = np.diff(np.r_[starts, seg.size])
-            for d, s_, n in zip(track_ids[starts].tolist(), seg[starts].tolist(),
-                                counts.tolist(), strict=True):
-                self.trajectories.append((d, int(s_), int(n)))
+        if info["rows"]:
+            self.trajectories.extend(info["trajectories"])
             self.obs.append(result.obs)
         if export is not None:
             for name, (text, rows, empty) in result.tables.items():

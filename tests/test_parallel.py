@@ -63,7 +63,8 @@ def test_a_local_cluster_gives_the_bytes_of_a_serial_run(release, tmp_path, monk
     formats = ["geojson", "parquet"]
     streaming.run(paths, tmp_path / "serial", config, formats=formats)
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address=None) as cluster:
+                      dashboard_address=None,
+                      scheduler_kwargs={"dashboard_address": "127.0.0.1:0"}) as cluster:
         run = streaming.run(paths, tmp_path / "cluster", config, formats=formats,
                             scheduler=cluster.scheduler_address)
     assert run.drifters == 4

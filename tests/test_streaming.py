@@ -89,6 +89,55 @@ def test_drifters_spread_over_files_give_the_bytes_of_the_whole_table_path(tmp_p
     _compare(tmp_path / "whole_qc", tmp_path / "stream_qc")
 
 
+@pytest.mark.slow
+def test_drifters_grouped_in_the_input_are_formatted_in_runs_with_the_same_bytes(
+        tmp_path, monkeypatch):
+    # one file, each drifter's rows together but the drifters in reverse order,
+    # so that drifter order and input order differ; drifters span read chunks
+    from driftloop.synth import simulate_many
+
+    monkeypatch.setattr(streaming, "CHUNK_ROWS", 500)
+    monkeypatch.setattr(streaming, "BATCH_DRIFTERS", 2)
+    fixes = simulate_many(4, 8, 5, truth=False).fixes.copy()
+    fixes["time"] = fixes["time"].dt.strftime("%Y-%m-%dT%H:%M:%SZ")
+    order = sorted(fixes["drifter_id"].astype(str).unique(), reverse=True)
+    grouped = pd.concat([fixes[fixes["drifter_id"].astype(str) == d] for d in order])
+    (tmp_path / "in").mkdir()
+    grouped.to_csv(tmp_path / "in" / "release.csv", index=False)
+    paths = [tmp_path / "in" / "release.csv"]
+    calls = []
+    original = streaming._write_runs
+
+    def recording(*args, **kwargs):
+        calls.append(len(args[1]))
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(streaming, "_write_runs", recording)
+    config = Config().replace("qc", land_test=False)
+    for stages in ("all", "qc"):
+        analyse(paths, config, stages=stages).write(tmp_path / f"whole_{stages}")
+        streaming.run(paths, tmp_path / f"stream_{stages}", config, stages=stages)
+        _compare(tmp_path / f"whole_{stages}", tmp_path / f"stream_{stages}")
+    # the runs were formatted with the drifters: one run per drifter
+    assert calls == [4, 4]
+
+
+def test_read_pass_counts_runs_of_consecutive_rows_of_a_drifter(tmp_path, monkeypatch):
+    # worked by hand: rows A A B B A | B -> runs A(0-1) B(2-3) A(4) B(5) = 4
+    monkeypatch.setattr(streaming, "CHUNK_ROWS", 5)
+    path = tmp_path / "mixed.csv"
+    times = pd.date_range("2024-03-01", periods=6, freq="h").strftime("%Y-%m-%dT%H:%M:%SZ")
+    pd.DataFrame({"id": list("AABBAB"), "time": times, "lat": 40.0 + np.arange(6) * 0.01,
+                  "lon": -30.0}).to_csv(path, index=False)
+    spool = streaming._Spool(tmp_path)
+    try:
+        index, chunks, info, rows, attrs, runs = streaming._read_pass([path], Config(), spool)
+    finally:
+        spool.close()
+    assert (rows, runs, sorted(index)) == (6, 4, ["A", "B"])
+    assert chunks == [(0, 5), (5, 1)]
+
+
 def _smallest_arc(west: np.ndarray, east: np.ndarray) -> tuple[float, float, float]:
     """Brute force: the widest uncovered arc between intervals on the circle (common practice).
 

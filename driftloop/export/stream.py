@@ -29,6 +29,7 @@ from pathlib import Path
 from typing import Any
 
 import geopandas as gpd
+import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -292,6 +293,23 @@ class StreamExport:
             self._geojson[name].append_text(*rendered["geojson"])
         if rendered.get("frame") is not None:
             self.add_layer(name, rendered["frame"], geojson=False)
+
+    def add_geojson_text(self, name: str, text: str, count: int,
+                         boxes: np.ndarray | None) -> None:
+        """Append GeoJSON features formatted elsewhere (a worker) to a layer's file.
+
+        For layers written only as GeoJSON and CSV; the GeoPackage and
+        GeoParquet files take chunks through :meth:`add_rendered`.
+
+        Parameters
+        ----------
+        name : str
+            Layer name.
+        text, count, boxes
+            As :func:`driftloop.export.geojson.feature_text` returns them.
+        """
+        if name in self._geojson:
+            self._geojson[name].append_text(text, count, boxes)
 
     def add_table_text(self, name: str, text: str, rows: int, empty: pd.DataFrame) -> None:
         """Append CSV rows formatted by :func:`driftloop.io.writers.csv_text`.
