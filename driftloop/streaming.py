@@ -358,9 +358,19 @@ def _later_stages(result: BatchResult, config: Config, formats: tuple, lap) -> N
                                        equator_band_deg=config.loops.equator_band_deg)
     lap("spectra")
     decay = inertial_decay_times(events)
-    ids = decomposed["drifter_id"].astype(str) if len(decomposed) else None
-    for drifter in ([] if ids is None else sorted(ids.unique())):
-        rows = decomposed[(ids == drifter).to_numpy()]
+    names: list = []
+    if len(decomposed):
+        # each drifter's rows by one stable sort of the batch (in table order within it)
+        ids = decomposed["drifter_id"].astype(str).to_numpy(dtype=object)
+        names, codes = np.unique(ids, return_inverse=True)
+        order = np.argsort(codes, kind="stable")
+        bounds = np.searchsorted(codes[order], np.arange(len(names) + 1))
+        columns = {name: decomposed[name].to_numpy(dtype=float) for name in _POOLED}
+        times = pd.DatetimeIndex(pd.to_datetime(decomposed["time"], utc=True)).asi8
+    for k, drifter in enumerate(names):
+        drifter = str(drifter)
+        take = order[bounds[k]:bounds[k + 1]]
+        rows = decomposed.iloc[take]
         counts = grid_step_counts(rows)
         dt_s = grid_step_from_counts(counts)
         result.step_counts[drifter], result.local_dt_s[drifter] = counts, dt_s
@@ -368,8 +378,8 @@ def _later_stages(result: BatchResult, config: Config, formats: tuple, lap) -> N
         result.drift[drifter] = drifter_drift_statistics(rows, drifter, result.decay[drifter],
                                                          dt_s)
         result.series[drifter] = drift_series(rows, drifter, dt_s)
-        pooled = {name: rows[name].to_numpy(dtype=float) for name in _POOLED}
-        pooled["time_ns"] = pd.DatetimeIndex(pd.to_datetime(rows["time"], utc=True)).asi8
+        pooled = {name: column[take] for name, column in columns.items()}
+        pooled["time_ns"] = times[take]
         result.pooled[drifter] = pooled
     lap("drift")
     if formats:
