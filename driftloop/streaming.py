@@ -107,7 +107,7 @@ class _Spool:
     def put(self, table: pd.DataFrame) -> tuple[int, int]:
         import pyarrow as pa
 
-        arrow = pa.Table.from_pandas(table, preserve_index=True)
+        arrow = pa.Table.from_pandas(table, preserve_index=True, nthreads=1)  # no thread pool
         sink = pa.BufferOutputStream()
         with pa.ipc.new_stream(sink, arrow.schema) as writer:
             writer.write_table(arrow)
@@ -116,7 +116,8 @@ class _Spool:
     def get(self, where: tuple[int, int]) -> pd.DataFrame:
         import pyarrow as pa
 
-        return pa.ipc.open_stream(pa.py_buffer(self._read(where))).read_all().to_pandas()
+        return pa.ipc.open_stream(pa.py_buffer(self._read(where))).read_all().to_pandas(
+            use_threads=False)
 
     def put_arrays(self, arrays: Sequence[np.ndarray]) -> tuple[int, int]:
         buffer = io.BytesIO()
