@@ -216,11 +216,17 @@ def _client(workers: int, scheduler: str | None):
             client.close()
         return
     # no dashboard; the scheduler's small HTTP server (health, metrics) takes a
-    # free port, so that runs at the same time do not compete for 8787
-    cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                           host="127.0.0.1", dashboard_address=None,
-                           scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
-                           silence_logs=logging.ERROR)
+    # free port, so that runs at the same time do not compete for 8787; and no
+    # statistical profiler in the workers: sampling every thread's stack every
+    # 10 ms competes with the work for the interpreter lock (a run on two
+    # cores took a third longer with it)
+    import dask
+
+    with dask.config.set({"distributed.worker.profile.enabled": False}):
+        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                               host="127.0.0.1", dashboard_address=None,
+                               scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+                               silence_logs=logging.ERROR)
     try:
         with Client(cluster) as client:
             yield client

@@ -304,12 +304,10 @@ def _process(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Config, s
         tables = [rows for _, rows in batch]
         flagged = run_qc(tables[0] if len(tables) == 1 else pd.concat(tables), config.qc)
         summary.add_drifters(flagged, [(drifter, len(rows)) for drifter, rows in batch])
-        bounds = np.cumsum([0] + [len(rows) for rows in tables]).tolist()
-        parts = [flagged.iloc[a:b] for a, b in zip(bounds[:-1], bounds[1:], strict=True)]
         lap("qc")
         result = BatchResult([d for d, _ in batch], flagged, summary, timer)
         if fixes is not None:
-            result.fixes_runs = [render_run(run, *fixes, formats) for run in _runs(parts)]
+            result.fixes_runs = [render_run(run, *fixes, formats) for run in _runs(flagged)]
             lap("write")
         if stages == "qc":
             result.flagged = None if fixes is not None else flagged
@@ -482,21 +480,24 @@ def process_batch(batch: Sequence[tuple[str | None, pd.DataFrame]], config: Conf
     return _process(batch, config, stages, formats, fixes)
 
 
-def _runs(parts: Sequence[pd.DataFrame]) -> Iterator[pd.DataFrame]:
-    """Split each drifter's flagged rows into runs of consecutive input rows."""
-    for part in parts:
-        if not len(part):
-            continue
-        pos = part.index.to_numpy()
-        cuts = np.flatnonzero(np.diff(pos) != 1) + 1
-        bounds = np.r_[0, cuts, pos.size]
-        for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True):
-            yield part.iloc[a:b]
+def _runs(flagged: pd.DataFrame) -> Iterator[pd.DataFrame]:
+    """Split a batch's flagged rows (drifter after drifter) into runs of consecutive input rows.
+
+    Drifters that follow each other in the input as in the batch share a
+    run, so that a release sorted by drifter is formatted a batch at a time.
+    """
+    if not len(flagged):
+        return
+    pos = flagged.index.to_numpy()
+    cuts = np.flatnonzero(np.diff(pos) != 1) + 1
+    bounds = np.r_[0, cuts, pos.size]
+    for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist(), strict=True):
+        yield flagged.iloc[a:b]
 
 
 def render_run(table: pd.DataFrame, attrs: dict, columns: tuple, max_problems: int,
                formats: tuple) -> dict:
-    """Format a run of consecutive input rows of one drifter for the fixes outputs.
+    """Format a run of consecutive input rows (of one or more drifters) for the fixes outputs.
 
     Parameters
     ----------
