@@ -38,10 +38,22 @@ IN_FLIGHT_PER_THREAD = 3
 class Executor:
     """Runs functions on items, in this process or on a Dask client, results in order."""
 
-    def __init__(self, client: Any = None, starting: Future | None = None) -> None:
+    def __init__(self, client: Any = None, starting: Future | None = None,
+                 stop: Callable[[], Any] | None = None) -> None:
         self._client = client
         self._starting = starting
+        self._stop = stop
         self._warming: list = []
+
+    def close_soon(self) -> None:
+        """Start stopping the cluster in the background; the executor is not used after this.
+
+        The caller goes on (e.g. writing the outputs) while the workers shut
+        down; leaving the :func:`executor` block waits for the end.
+        """
+        if self._stop is not None:
+            self._stop()
+            self._stop = None
 
     @property
     def client(self) -> Any:
@@ -158,13 +170,17 @@ def executor(workers: int = 1, scheduler: str | None = None) -> Iterator[Executo
     # executor's client waits for it
     stack = contextlib.ExitStack()
     pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="driftloop-cluster")
+    stopping: list[Future] = []
     try:
-        yield Executor(starting=pool.submit(stack.enter_context, _client(workers, scheduler)))
-    finally:
         # closed in the thread that opened it (the client keeps context
         # variables of that thread)
+        yield Executor(starting=pool.submit(stack.enter_context, _client(workers, scheduler)),
+                       stop=lambda: stopping.append(pool.submit(stack.close)))
+    finally:
         try:
-            pool.submit(stack.close).result()
+            pool.submit(stack.close).result()  # after the start (and any earlier stop)
+            for future in stopping:
+                future.result()
         finally:
             pool.shutdown(wait=True)
 

@@ -800,6 +800,7 @@ def run(
             fixes_csv = _fixes_pass(ex, out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS,
                                     export, max_problems, attrs)
         writers.append(fixes_csv.appender)
+        ex.close_soon()  # no more work for the workers: they stop while the release is written
         summary, spectra = state.finish(info, fixes_csv.rows)
         if check is not None:
             check(fixes_csv.problems, fixes_csv.problem_count)
