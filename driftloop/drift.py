@@ -472,7 +472,8 @@ def inertial_decay_times(events: pd.DataFrame | None) -> dict[str, list[float]]:
 
 
 def drifter_drift_statistics(rows: pd.DataFrame, drifter: str, decay_h: list[float],
-                             dt_s: float, dispersion_options: Mapping[str, Any] | None = None
+                             dt_s: float, dispersion_options: Mapping[str, Any] | None = None,
+                             series: tuple[np.ndarray, np.ndarray] | None = None
                              ) -> dict[str, Any]:
     """Compute the :func:`drift_statistics` entry of one drifter.
 
@@ -488,6 +489,8 @@ def drifter_drift_statistics(rows: pd.DataFrame, drifter: str, decay_h: list[flo
         Grid step of the release (s).
     dispersion_options : mapping, optional
         As for :func:`drift_statistics`.
+    series : tuple of numpy.ndarray, optional
+        ``drift_series(rows, drifter, dt_s)`` when the caller has it already.
 
     Returns
     -------
@@ -499,7 +502,7 @@ def drifter_drift_statistics(rows: pd.DataFrame, drifter: str, decay_h: list[flo
     if len(labels) == 1 and isinstance(labels[0], str) and labels[0] == drifter:
         # one drifter: its statistics directly, as dispersion_by_drifter gives them
         dt_s = _check_dt(dt_s)
-        u, v = drift_series(rows, drifter, dt_s)
+        u, v = series if series is not None else drift_series(rows, drifter, dt_s)
         ok = np.isfinite(u) & np.isfinite(v)
         stats = single_particle_statistics(u, v, dt_s, **options) if ok.sum() >= 3 else None
         dispersion = None if stats is None else _stats_entry(stats)

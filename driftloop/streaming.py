@@ -374,9 +374,9 @@ def _later_stages(result: BatchResult, config: Config, formats: tuple, lap) -> N
         dt_s = grid_step_from_counts(counts)
         result.step_counts[drifter], result.local_dt_s[drifter] = counts, dt_s
         result.decay[drifter] = decay.get(drifter, [])
-        result.drift[drifter] = drifter_drift_statistics(rows, drifter, result.decay[drifter],
-                                                         dt_s)
         result.series[drifter] = drift_series(rows, drifter, dt_s)
+        result.drift[drifter] = drifter_drift_statistics(rows, drifter, result.decay[drifter],
+                                                         dt_s, series=result.series[drifter])
         pooled = {name: column[take] for name, column in columns.items()}
         pooled["time_ns"] = times[take]
         result.pooled[drifter] = pooled

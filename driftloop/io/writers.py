@@ -148,7 +148,7 @@ def atomic_open(path: str | Path, mode: str = "w", **kwargs: Any) -> Iterator[IO
         kwargs.setdefault("newline", "")
     try:
         with contextlib.suppress(OSError):
-            os.fchmod(fd, 0o666 & ~_umask())
+            os.fchmod(fd, new_file_mode())
         with os.fdopen(fd, mode, **kwargs) as handle:
             yield handle
             handle.flush()
@@ -185,7 +185,7 @@ class AtomicFile:
             prefix=f".{self.path.name}.{os.getpid()}.", suffix=PART_SUFFIX, dir=self.path.parent
         )
         with contextlib.suppress(OSError):
-            os.fchmod(fd, 0o666 & ~_umask())
+            os.fchmod(fd, new_file_mode())
         kwargs = {} if "b" in mode else {"encoding": "utf-8", "newline": ""}
         self.handle: IO = os.fdopen(fd, mode, **kwargs)
 
