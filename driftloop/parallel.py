@@ -22,8 +22,9 @@ from __future__ import annotations
 
 import contextlib
 import logging
+import os
 from collections import deque
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any
 
@@ -139,7 +140,8 @@ class Executor:
 
 
 @contextlib.contextmanager
-def executor(workers: int = 1, scheduler: str | None = None) -> Iterator[Executor]:
+def executor(workers: int = 1, scheduler: str | None = None,
+             preload: Sequence[str] = ()) -> Iterator[Executor]:
     """Give an :class:`Executor` for the run, starting and stopping a local cluster if asked.
 
     Parameters
@@ -149,6 +151,10 @@ def executor(workers: int = 1, scheduler: str | None = None) -> Iterator[Executo
     scheduler : str, optional
         Address of a running Dask scheduler, e.g. ``tcp://10.0.0.5:8786``;
         takes precedence over ``workers``.
+    preload : sequence of str
+        Modules that the work imports: the workers of a local cluster start
+        with them imported (they are forked from a server process that
+        imported them once).
 
     Yields
     ------
@@ -165,6 +171,8 @@ def executor(workers: int = 1, scheduler: str | None = None) -> Iterator[Executo
     if scheduler is None and workers == 1:
         yield Executor()
         return
+    if scheduler is None:
+        _start_fork_server(preload)
     # the cluster starts (or the scheduler is reached) in a thread of its own
     # while the caller goes on, e.g. reading the inputs; the first use of the
     # executor's client waits for it
@@ -174,7 +182,8 @@ def executor(workers: int = 1, scheduler: str | None = None) -> Iterator[Executo
     try:
         # closed in the thread that opened it (the client keeps context
         # variables of that thread)
-        yield Executor(starting=pool.submit(stack.enter_context, _client(workers, scheduler)),
+        yield Executor(starting=pool.submit(stack.enter_context,
+                                               _client(workers, scheduler, preload)),
                        stop=lambda: stopping.append(pool.submit(stack.close)))
     finally:
         try:
@@ -211,8 +220,54 @@ def ordered_map(func: Callable[..., Any], items: Iterable[Any], *, args: tuple =
         yield from ex.map(func, items, args)
 
 
+#: Environment of local worker processes: one thread for the numerical
+#: libraries (each worker has one thread and there is a worker per core), as
+#: Dask sets it for the workers it spawns.
+WORKER_ENVIRONMENT = {"OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
+                      "OPENBLAS_NUM_THREADS": "1"}
+
+
+#: Set, it turns off glibc's adaptive mmap threshold (see :func:`_client`);
+#: local workers run without it.
+_TRIM = "MALLOC_TRIM_THRESHOLD_"
+
+
+def _fork_server_preload(preload: Sequence[str]) -> list[str]:
+    return ["distributed", "distributed.nanny", "numpy", "pandas", *preload]
+
+
+def _start_fork_server(preload: Sequence[str]) -> None:
+    """Start the process that local workers are forked from, with ``preload`` imported.
+
+    Started first thing, it imports the stack on the second core while this
+    process goes on (reading the inputs, starting the scheduler); the
+    workers, forked from it, start with everything imported.  The libraries
+    read their thread counts when imported and glibc its malloc settings
+    when a process starts, so the server starts with
+    :data:`WORKER_ENVIRONMENT` and without ``MALLOC_TRIM_THRESHOLD_`` (this
+    process's environment is left as it was).  A server already running
+    (from an earlier run in this process) is kept.
+    """
+    import multiprocessing
+    from multiprocessing import forkserver
+
+    multiprocessing.get_context("forkserver").set_forkserver_preload(
+        _fork_server_preload(preload))
+    saved = {name: os.environ.get(name) for name in (*WORKER_ENVIRONMENT, _TRIM)}
+    os.environ.update(WORKER_ENVIRONMENT)
+    os.environ.pop(_TRIM, None)  # e.g. left here by Dask's own spawning of workers
+    try:
+        forkserver.ensure_running()
+    finally:
+        for name, value in saved.items():
+            if value is None:
+                os.environ.pop(name, None)
+            else:
+                os.environ[name] = value
+
+
 @contextlib.contextmanager
-def _client(workers: int, scheduler: str | None):
+def _client(workers: int, scheduler: str | None, preload: Sequence[str] = ()):
     try:
         from dask.distributed import Client, LocalCluster
     except ImportError as exc:  # pragma: no cover - dask is a dependency
@@ -231,14 +286,28 @@ def _client(workers: int, scheduler: str | None):
         finally:
             client.close()
         return
-    # no dashboard; the scheduler's small HTTP server (health, metrics) takes a
-    # free port, so that runs at the same time do not compete for 8787; and no
-    # statistical profiler in the workers: sampling every thread's stack every
-    # 10 ms competes with the work for the interpreter lock (a run on two
-    # cores took a third longer with it)
+    # - no dashboard; the scheduler's small HTTP server (health, metrics) takes a
+    #   free port, so that runs at the same time do not compete for 8787;
+    # - no statistical profiler in the workers: sampling every thread's stack
+    #   every 10 ms competes with the work for the interpreter lock (a run on
+    #   two cores took a third longer with it);
+    # - workers are forked from a server process that has imported the modules
+    #   of the work once, instead of each worker starting a new interpreter and
+    #   importing them while the inputs are read (on two cores, three processes
+    #   then share them);
+    # - no MALLOC_TRIM_THRESHOLD_ in the workers' environment (Dask sets one):
+    #   setting it turns off glibc's adaptive mmap threshold, so every array of
+    #   more than 128 KiB is a fresh mapping and its pages fault in again (the
+    #   QC of a batch took twice as long)
     import dask
+    from distributed.utils import get_mp_context
 
-    with dask.config.set({"distributed.worker.profile.enabled": False}):
+    with dask.config.set({"distributed.worker.profile.enabled": False,
+                          "distributed.worker.multiprocessing-method": "forkserver",
+                          "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
+        # the first call sets Dask's own preload list, once per process; ours
+        # replaces it, for a server not yet started
+        get_mp_context().set_forkserver_preload(_fork_server_preload(preload))
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None,
                                scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},

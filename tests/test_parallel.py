@@ -9,7 +9,10 @@ output but the run clock in ``provenance.json`` must be byte-identical
 from __future__ import annotations
 
 import json
+import os
 import re
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -89,3 +92,32 @@ def test_workers_below_one_are_refused_in_one_line(release, tmp_path, capsys):
     err = capsys.readouterr().err
     assert err.count("\n") == 1 and "--workers" in err
     assert not (tmp_path / "out").exists()
+
+
+_FACTS = """
+import os, sys
+from driftloop.parallel import executor
+
+def facts(item):
+    return item, os.environ.get("MALLOC_TRIM_THRESHOLD_"), "colorsys" in sys.modules
+
+if __name__ == "__main__":
+    assert "colorsys" not in sys.modules
+    with executor(2, preload=("colorsys",)) as ex:
+        print(list(ex.map(facts, range(4))))
+"""
+
+
+@pytest.mark.slow
+def test_local_workers_start_with_the_preloaded_modules_and_glibc_malloc_defaults(tmp_path):
+    # colorsys: a standard module that neither driftloop nor Dask imports.
+    # MALLOC_TRIM_THRESHOLD_, when set, turns off glibc's adaptive mmap threshold
+    # (mallopt(3), M_TRIM_THRESHOLD and M_MMAP_THRESHOLD, Linux man-pages); Dask
+    # sets it for the workers it spawns and leaves it in the environment
+    script = tmp_path / "facts.py"
+    script.write_text(_FACTS)
+    env = {**os.environ, "MALLOC_TRIM_THRESHOLD_": "65536"}
+    done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                          env=env, timeout=300, check=False)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.strip() == str([(k, None, True) for k in range(4)])
