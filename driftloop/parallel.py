@@ -98,6 +98,31 @@ class Executor:
             self._warming.append(client.submit(func, *args, workers=[address],
                                                pure=False, allow_other_workers=False))
 
+    def submit(self, func: Callable[..., Any], *args: Any) -> Any:
+        """Start ``func(*args)`` on a worker; the returned object's ``result()`` gives its value.
+
+        In this process the call is made when ``result()`` is first asked
+        for.  The arguments are scattered to the cluster first, so that
+        large ones travel as data, not inside the task.
+
+        Parameters
+        ----------
+        func : callable
+            A module-level function.
+        *args
+            Its arguments.
+
+        Returns
+        -------
+        object
+            A :class:`concurrent.futures.Future`-like object.
+        """
+        client = self.client
+        if client is None:
+            return _Deferred(func, args)
+        shared = client.scatter(list(args), hash=False) if args else []
+        return client.submit(func, *shared, pure=False)
+
     def map(self, func: Callable[..., Any], items: Iterable[Any], args: tuple = ()
             ) -> Iterator[Any]:
         """Yield ``func(item, *args)`` for each item, in item order.
@@ -137,6 +162,21 @@ class Executor:
         finally:
             for future in pending:
                 future.cancel()
+
+
+class _Deferred:
+    """A call made when its result is first asked for (in this process)."""
+
+    def __init__(self, func: Callable[..., Any], args: tuple) -> None:
+        self._call: tuple | None = (func, args)
+        self._value: Any = None
+
+    def result(self) -> Any:
+        if self._call is not None:
+            func, args = self._call
+            self._value = func(*args)
+            self._call = None
+        return self._value
 
 
 @contextlib.contextmanager

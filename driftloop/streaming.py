@@ -90,13 +90,14 @@ _POOLED = ("u_drift", "v_drift", "u_inertial", "v_inertial")
 
 
 class _Spool:
-    """Tables and arrays (``.npy``) in an anonymous temporary file.
+    """Tables and lists of arrays in an anonymous temporary file.
 
     Each item is written at the end of the file; :meth:`put` returns where
     it lies and :meth:`get` reads it back with its dtypes, index and attrs.
-    Tables are pickled (protocol 5): the file is this run's own, written and
+    Both are pickled (protocol 5): the file is this run's own, written and
     read by this process only, and pickling copies the columns' buffers,
-    several times faster than an Arrow IPC round trip of the same table.
+    several times faster than an Arrow IPC round trip of the same table (or
+    ``.npy`` files of the same arrays).
     """
 
     def __init__(self, folder: Path) -> None:
@@ -114,21 +115,13 @@ class _Spool:
         self._file.seek(where[0])
         return self._file.read(where[1])
 
-    def put(self, table: pd.DataFrame) -> tuple[int, int]:
-        return self._write(pickle.dumps(table, protocol=5))
+    def put(self, item: Any) -> tuple[int, int]:
+        """Store a table or a list of arrays; return where it lies."""
+        return self._write(pickle.dumps(item, protocol=5))
 
-    def get(self, where: tuple[int, int]) -> pd.DataFrame:
+    def get(self, where: tuple[int, int]) -> Any:
+        """Read back what :meth:`put` stored at ``where``."""
         return pickle.loads(self._read(where))  # noqa: S301 - this run's own temporary file
-
-    def put_arrays(self, arrays: Sequence[np.ndarray]) -> tuple[int, int]:
-        buffer = io.BytesIO()
-        for array in arrays:
-            np.save(buffer, np.asarray(array), allow_pickle=False)
-        return self._write(buffer.getvalue())
-
-    def get_arrays(self, where: tuple[int, int], count: int) -> list[np.ndarray]:
-        buffer = io.BytesIO(self._read(where))
-        return [np.load(buffer, allow_pickle=False) for _ in range(count)]
 
     def close(self) -> None:
         self._file.close()
@@ -795,14 +788,15 @@ def run(
         if bar is not None:
             bar.close()
         clock = time.perf_counter()
+        # the release's drift statistics (a worker's job in a parallel run) are
+        # computed while the outputs are written
+        drift = ex.submit(release_drift, state.drift_inputs()) if analyse else None
         if direct:
             fixes_csv = _write_runs(out, fixes_runs, flagged_spool, export, max_problems, n_rows)
         else:
             fixes_csv = _fixes_pass(ex, out, by_chunk, flagged_spool, FIXES_CSV_COLUMNS,
                                     export, max_problems, attrs)
         writers.append(fixes_csv.appender)
-        ex.close_soon()  # no more work for the workers: they stop while the release is written
-        summary, spectra = state.finish(info, fixes_csv.rows)
         if check is not None:
             check(fixes_csv.problems, fixes_csv.problem_count)
         files = [fixes_csv.appender.commit()]
@@ -816,11 +810,13 @@ def run(
             from driftloop.export.formats import write_table_csv
 
             files += write_table_csv(
-                out / "spectra.csv", spectra,
+                out / "spectra.csv", state.spectra.table().table,
                 description="Rotary (Welch) spectra of the resampled velocities, per drifter "
                 "and for the release; PSD in (m/s)^2 per cycle per day.",
                 provenance=info_prov,
             )
+        summary = state.finish(info, fixes_csv.rows, None if drift is None else drift.result())
+        ex.close_soon()  # no more work for the workers: they stop while the run ends
         write_json(out / "summary.json", summary)
         timings["write"] = timings.get("write", 0.0) + time.perf_counter() - clock
         wall_s = time.perf_counter() - wall
@@ -994,6 +990,44 @@ def _fixes_pass(ex, out: Path, by_chunk, spool: _Spool, columns, export, max_pro
     return _FixesPass(appender, appender.rows, bad, count)
 
 
+def release_drift(inputs: tuple | None) -> dict[str, dict]:
+    """Drift statistics of every drifter and of the release from :meth:`_ReleaseState.drift_inputs`.
+
+    A drifter whose grid step is not the release's is computed again on
+    that step; the others keep the statistics of their batch.  The work of
+    the release entry (the pooled dispersion bootstrap) runs on a worker in
+    a parallel run, while this process writes the outputs.
+    """
+    from driftloop.drift import (
+        RELEASE_KEY,
+        drift_series,
+        drifter_drift_statistics,
+        release_drift_statistics,
+    )
+
+    if inputs is None:
+        return {}
+    dt_s, decay, drifters = inputs
+    pooled, series = [], []
+    result = {}
+    for drifter, arrays, local_dt, decay_by, entry in drifters:
+        columns = dict(zip(_POOLED, arrays[:len(_POOLED)], strict=True))
+        own = (arrays[-2], arrays[-1])
+        if local_dt != dt_s:  # a release of mixed grid steps
+            rows = pd.DataFrame({"drifter_id": drifter, "segment": 0,
+                                 "time": pd.to_datetime(arrays[len(_POOLED)], utc=True),
+                                 **columns})
+            result[drifter] = drifter_drift_statistics(rows, drifter, decay_by, dt_s)
+            own = drift_series(rows, drifter, dt_s)
+        else:
+            result[drifter] = entry
+        pooled.append(columns)
+        series.append(own)
+    rows = pd.DataFrame({k: np.concatenate([p[k] for p in pooled]) for k in pooled[0]})
+    result[RELEASE_KEY] = release_drift_statistics(rows, decay, series, dt_s, len(result))
+    return result
+
+
 class _ReleaseState:
     """What the release-level outputs accumulate over drifters (in drifter order)."""
 
@@ -1076,7 +1110,7 @@ class _ReleaseState:
             self.decay.extend(result.decay[drifter])
             self.decay_by[drifter] = result.decay[drifter]
             pooled = result.pooled[drifter]
-            offset = self.pooled_spool.put_arrays(
+            offset = self.pooled_spool.put(
                 [pooled[n] for n in (*_POOLED, "time_ns")] + list(result.series[drifter]))
             self.pooled_offsets.append((drifter, offset))
         if info["rows"]:
@@ -1088,10 +1122,11 @@ class _ReleaseState:
             for name, rendered in result.layers.items():
                 export.add_rendered(name, rendered)
 
-    def finish(self, inputs: list[dict], rows_out: int) -> tuple[dict, pd.DataFrame | None]:
+    def finish(self, inputs: list[dict], rows_out: int, drift: dict | None = None) -> dict:
+        """Assemble the summary; ``drift``: what :func:`release_drift` gave (None: none)."""
         summary = self.summary.finish(inputs, rows_out)
         if not self.analyse:
-            return summary, None
+            return summary
         summary["resample"] = {
             "points": self.resample["points"], "segments": self.resample["segments"],
             "points_in_gaps": self.resample["points_in_gaps"],
@@ -1110,46 +1145,25 @@ class _ReleaseState:
             "tolerance": 0.15,
         }
         summary["release"]["notes"].extend(notes)
-        drift = self._drift()
+        drift = drift or {}
         summary["drift"] = drift.get("(release)")
         for drifter, entry in summary["drifters"].items():
             entry["drift"] = drift.get(drifter)
-        return summary, self.spectra.table().table
+        return summary
 
-    def _drift(self) -> dict[str, dict]:
-        from driftloop.drift import (
-            RELEASE_KEY,
-            drift_series,
-            drifter_drift_statistics,
-            grid_step_from_counts,
-            release_drift_statistics,
-        )
+    def drift_inputs(self) -> tuple | None:
+        """Read back from the spool what :func:`release_drift` needs (None: no drift)."""
+        from driftloop.drift import grid_step_from_counts
 
         if not self.drift:
-            return {}
-        dt_s = grid_step_from_counts(self.step_counts)
-        pooled, series = [], []
-        result = {}
+            return None
+        drifters = []
         for drifter, offset in self.pooled_offsets:
-            arrays = self.pooled_spool.get_arrays(offset, len(_POOLED) + 3)
-            columns = dict(zip(_POOLED, arrays[:len(_POOLED)], strict=True))
-            own = (arrays[-2], arrays[-1])
-            if self.local_dt[drifter] != dt_s:  # a release of mixed grid steps
-                rows = pd.DataFrame({"drifter_id": drifter, "segment": 0,
-                                     "time": pd.to_datetime(arrays[len(_POOLED)], utc=True),
-                                     **columns})
-                result[drifter] = drifter_drift_statistics(
-                    rows, drifter, self.decay_by[drifter], dt_s)
-                own = drift_series(rows, drifter, dt_s)
-            else:
-                result[drifter] = self.drift[drifter]
-            pooled.append(columns)
-            series.append(own)
-        rows = pd.DataFrame({k: np.concatenate([p[k] for p in pooled]) for k in pooled[0]})
-        result[RELEASE_KEY] = release_drift_statistics(rows, self.decay, series, dt_s,
-                                                       len(result))
+            arrays = self.pooled_spool.get(offset)
+            drifters.append((drifter, arrays, self.local_dt[drifter], self.decay_by[drifter],
+                             self.drift[drifter]))
         self.pooled_spool.close()
-        return result
+        return grid_step_from_counts(self.step_counts), self.decay, drifters
 
     def close(self) -> None:
         """Close the temporary files."""
