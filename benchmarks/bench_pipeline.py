@@ -15,6 +15,9 @@ test off (``--no-land-test``).  It prints:
   segment, 2 senses x n_periods x padded length, from
   ``driftloop.wavelet``'s plan), and the ratio of the end-to-end time to it
   (target <= 2.5);
+- a lower bound of any run: reading the input CSV files and writing them
+  back with pyarrow's C++ CSV reader and writer, nothing else, as a
+  multiple of the floor;
 - peak RSS of the run (``ru_maxrss`` of the subprocess), at 200 and 2,000
   drifters (target: ratio <= 1.3);
 - wall time with ``--workers 1`` and ``--workers 2`` on 500 drifters
@@ -35,6 +38,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import os
 import subprocess
 import sys
@@ -122,6 +126,24 @@ def fft_floor(run_dir: Path, repeat: int = 3) -> tuple[float, int]:
     return float(np.median(best)), int(sum(shapes.values()))
 
 
+def io_bound(folder: Path, repeat: int = 3) -> float:
+    """Seconds to read the input CSVs and write them back, with pyarrow's C++ CSV code.
+
+    A lower bound of any run that reads every fix and writes ``fixes.csv``:
+    no parsing of times, no QC, no other output.
+    """
+    import pyarrow.csv as pacsv
+
+    best = math.inf
+    with tempfile.TemporaryDirectory() as tmp:
+        for _ in range(repeat):
+            start = time.perf_counter()
+            for k, path in enumerate(sorted(folder.glob("*.csv"))):
+                pacsv.write_csv(pacsv.read_csv(path), Path(tmp) / f"{k}.csv")
+            best = min(best, time.perf_counter() - start)
+    return best
+
+
 def load() -> str:
     try:
         return " ".join(f"{v:.2f}" for v in os.getloadavg())
@@ -144,6 +166,9 @@ def part_throughput(work: Path, drifters: int, days: float, per_file: int) -> No
     ratio = result["wall_s"] / floor
     print(f"FFT floor         {floor:8.2f} s   ratio end-to-end / floor {ratio:.1f}"
           "  (target <= 2.5)")
+    bound = io_bound(folder)
+    print(f"CSV in and out    {bound:8.2f} s   = {bound / floor:.1f} x the floor: reading the "
+          "inputs and writing them back with pyarrow's CSV code alone")
     print(f"stages (s)        {_stage_line(result['stages'])}")
     print(f"peak RSS          {result['maxrss_kib'] / 1024:8.0f} MiB")
 
