@@ -21,7 +21,6 @@ from typing import NamedTuple
 
 import numpy as np
 import pandas as pd
-from scipy import signal
 
 from driftloop.physics import coriolis_parameter
 
@@ -53,6 +52,10 @@ class RotarySpectra(NamedTuple):
 
 
 def _segment_spectra(z: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.ndarray, int]:
+    # imported here: the process that only gathers a release's spectra (the
+    # main process of a parallel run) does not need scipy.signal (~1 s to import)
+    from scipy import signal
+
     freq, psd = signal.welch(
         z, fs=fs, window="hann", nperseg=nperseg, noverlap=nperseg // 2,
         detrend="constant", return_onesided=False, scaling="density",
