@@ -1,8 +1,9 @@
 """CSV text of the output tables, formatted column-wise in Arrow.
 
-References: :meth:`pandas.DataFrame.to_csv` (``index=False``,
-``lineterminator="\\n"``, which quotes through Python's :mod:`csv` module,
-QUOTE_MINIMAL as in RFC 4180 §2) on the table with its times already
+References: :meth:`pandas.DataFrame.to_csv` (``index=False``, which quotes
+through Python's :mod:`csv` module, QUOTE_MINIMAL as in RFC 4180 §2, and
+CRLF line ends turned into LF afterwards, so that fields holding a CR are
+quoted as RFC 4180 quotes line breaks) on the table with its times already
 written as ISO 8601 ``Z`` strings; float texts against Python's own
 ``repr`` (the shortest decimal that reads back as the same double).
 """
@@ -45,7 +46,11 @@ def _reference_csv(table: pd.DataFrame, float_digits=None) -> str:
             out[name] = format_time(out[name])
     for name, digits in (float_digits or {}).items():
         out[name] = out[name].round(digits)
-    return out.to_csv(None, index=False, lineterminator="\n")
+    # with CRLF line ends the csv module quotes fields holding a CR as well as an
+    # LF (RFC 4180 §2, rule 6); no text of these tables holds CRLF, so every CRLF
+    # is a line end
+    assert not any("\r\n" in str(v) for v in out.to_numpy().ravel().tolist())
+    return out.to_csv(None, index=False, lineterminator="\r\n").replace("\r\n", "\n")
 
 
 def _mixed_table(n: int, seed: int) -> pd.DataFrame:
@@ -117,3 +122,21 @@ def test_format_time_writes_iso_8601_with_z():
     assert format_time(times).tolist() == [
         "2026-03-01T12:00:00Z", "", "1969-07-20T20:17:40.500000Z", "2026-03-01T12:00:00.000001Z"
     ]
+
+
+def test_fields_with_a_carriage_return_are_quoted_and_read_back_whole():
+    # RFC 4180 §2, rule 6: fields with line breaks are quoted; pandas' C reader
+    # (like many others) ends a line at a bare CR outside quotes
+    import io
+
+    values = ["plain", "cr\rhere", "lf\nhere", 'both\r\n"q"', "end\r"]
+    tables = [
+        pd.DataFrame({"text": pd.array(values, dtype="string"), "k": range(5)}),
+        pd.DataFrame({"text": pd.Categorical(values), "k": range(5)}),  # the pandas path
+    ]
+    for table in tables:
+        text = csv_text(table)
+        assert '"cr\rhere"' in text and '"end\r"' in text
+        back = pd.read_csv(io.StringIO(text), dtype={"text": str}, keep_default_na=False)
+        assert back["text"].tolist() == values
+        assert back["k"].tolist() == list(range(5))

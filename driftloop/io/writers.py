@@ -13,6 +13,7 @@ import csv
 import io
 import json
 import os
+import re
 import tempfile
 from collections.abc import Iterator
 from pathlib import Path
@@ -369,10 +370,19 @@ _CSV_SPECIAL = '[,"\r\n]'
 
 
 def _csv_field(value: str) -> str:
-    """One field as :func:`csv.writer` writes it (QUOTE_MINIMAL), not the only one of its row."""
+    """One field as :func:`csv.writer` writes it (QUOTE_MINIMAL), not the only one of its row.
+
+    A field with a carriage return is quoted too: RFC 4180 (§2, rule 6)
+    quotes fields with line breaks, and many readers take a bare CR for
+    one, while the csv module quotes only the characters of its line
+    terminator (here the line feed).
+    """
     buffer = io.StringIO()
     csv.writer(buffer, lineterminator="\n").writerow([value, ""])
-    return buffer.getvalue()[:-2]
+    field = buffer.getvalue()[:-2]
+    if "\r" in value and not field.startswith('"'):
+        field = '"' + value.replace('"', '""') + '"'
+    return field
 
 
 def _csv_strings(array: pa.Array) -> pa.Array:
@@ -433,6 +443,42 @@ def _rounded(table: pd.DataFrame, float_digits: dict | None) -> pd.DataFrame:
     return table
 
 
+def _pandas_csv(table: pd.DataFrame, header: bool) -> str:
+    """``to_csv`` text, with text fields holding a carriage return quoted (see :func:`_csv_field`).
+
+    Such fields go to ``to_csv`` as placeholders (a number between NUL
+    characters, which need no quoting), replaced by the quoted fields
+    afterwards; a table whose text holds NUL characters is written as
+    ``to_csv`` writes it.
+    """
+    quoted: list[str] = []
+    out = table
+    for k in range(table.shape[1]):
+        column = table.iloc[:, k]
+        if column.dtype.kind != "O" and not isinstance(
+                column.dtype, pd.StringDtype | pd.CategoricalDtype):
+            continue
+        values = column.astype(object).to_numpy()
+        texts = [v for v in values.tolist() if isinstance(v, str)]
+        if any("\x00" in v for v in texts):
+            return table.to_csv(None, index=False, header=header, lineterminator="\n")
+        has_cr = np.array([isinstance(v, str) and "\r" in v for v in values.tolist()],
+                          dtype=bool)
+        if not has_cr.any():
+            continue
+        if out is table:
+            out = table.copy()
+        values = values.copy()
+        for i in np.flatnonzero(has_cr).tolist():
+            values[i] = f"\x00{len(quoted)}\x00"
+            quoted.append(_csv_field(table.iloc[i, k]))
+        out.isetitem(k, values)
+    text = out.to_csv(None, index=False, header=header, lineterminator="\n")
+    if quoted:
+        text = re.sub("\x00([0-9]+)\x00", lambda m: quoted[int(m.group(1))], text)
+    return text
+
+
 def _csv_chunk(table: pd.DataFrame, header: bool) -> str:
     """Format a chunk as ``table.to_csv(None, index=False, header=header)`` does, in Arrow.
 
@@ -452,7 +498,7 @@ def _csv_chunk(table: pd.DataFrame, header: bool) -> str:
             table = table.copy()
             for name in times:
                 table[name] = format_time(table[name])
-        return table.to_csv(None, index=False, header=header, lineterminator="\n")
+        return _pandas_csv(table, header)
     head = ""
     if header:
         buffer = io.StringIO()
