@@ -223,7 +223,7 @@ def executor(workers: int = 1, scheduler: str | None = None,
         # closed in the thread that opened it (the client keeps context
         # variables of that thread)
         yield Executor(starting=pool.submit(stack.enter_context,
-                                               _client(workers, scheduler, preload)),
+                                               _client(workers, scheduler)),
                        stop=lambda: stopping.append(pool.submit(stack.close)))
     finally:
         try:
@@ -272,10 +272,6 @@ WORKER_ENVIRONMENT = {"OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1",
 _TRIM = "MALLOC_TRIM_THRESHOLD_"
 
 
-def _fork_server_preload(preload: Sequence[str]) -> list[str]:
-    return ["distributed", "distributed.nanny", "numpy", "pandas", *preload]
-
-
 def _start_fork_server(preload: Sequence[str]) -> None:
     """Start the process that local workers are forked from, with ``preload`` imported.
 
@@ -292,7 +288,7 @@ def _start_fork_server(preload: Sequence[str]) -> None:
     from multiprocessing import forkserver
 
     multiprocessing.get_context("forkserver").set_forkserver_preload(
-        _fork_server_preload(preload))
+        ["distributed", "distributed.nanny", "numpy", "pandas", *preload])
     saved = {name: os.environ.get(name) for name in (*WORKER_ENVIRONMENT, _TRIM)}
     os.environ.update(WORKER_ENVIRONMENT)
     os.environ.pop(_TRIM, None)  # e.g. left here by Dask's own spawning of workers
@@ -307,7 +303,7 @@ def _start_fork_server(preload: Sequence[str]) -> None:
 
 
 @contextlib.contextmanager
-def _client(workers: int, scheduler: str | None, preload: Sequence[str] = ()):
+def _client(workers: int, scheduler: str | None):
     try:
         from dask.distributed import Client, LocalCluster
     except ImportError as exc:  # pragma: no cover - dask is a dependency
@@ -339,15 +335,13 @@ def _client(workers: int, scheduler: str | None, preload: Sequence[str] = ()):
     #   setting it turns off glibc's adaptive mmap threshold, so every array of
     #   more than 128 KiB is a fresh mapping and its pages fault in again (the
     #   QC of a batch took twice as long)
+    # (the server is already running, started by executor() with the preload:
+    # Dask's own preload list, set on its first use of the method, has no effect)
     import dask
-    from distributed.utils import get_mp_context
 
     with dask.config.set({"distributed.worker.profile.enabled": False,
                           "distributed.worker.multiprocessing-method": "forkserver",
                           "distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
-        # the first call sets Dask's own preload list, once per process; ours
-        # replaces it, for a server not yet started
-        get_mp_context().set_forkserver_preload(_fork_server_preload(preload))
         cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                host="127.0.0.1", dashboard_address=None,
                                scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},

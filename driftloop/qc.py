@@ -665,12 +665,9 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
         ratio[todo[same]] = fitted_ratio[c[same]]
         redo = todo[~same]
         x, y = _local_offsets(track, act, nb, offsets, redo, direct)
-        for start in range(0, redo.size, _CHUNK):
-            centre = redo[start : start + _CHUNK]
-            tau_s = track.t[act[nb[centre]]] - track.t[act[centre]][:, None]
+        for centre, tau_s, xc, yc in _fit_chunks(track, act, nb, redo, x, y):
             full = np.ones((centre.size, slots), dtype=bool)
-            r = _fit_ratio(tau_s, x[start : start + _CHUNK], y[start : start + _CHUNK], full,
-                           config)
+            r = _fit_ratio(tau_s, xc, yc, full, config)
             ratio[centre] = np.where(np.isfinite(r), r, 0.0)
         c = act[redo]
         fitted[c] = True
@@ -696,10 +693,7 @@ def _position_outliers(track: _Track, live: np.ndarray, config: QCConfig) -> np.
         loo[need[known]] = fitted_loo[c[known]]
         fresh = need[~known]
         x, y = _local_offsets(track, act, nb, offsets, fresh, direct)
-        for start in range(0, fresh.size, _CHUNK):
-            centre = fresh[start : start + _CHUNK]
-            tau_s = track.t[act[nb[centre]]] - track.t[act[centre]][:, None]
-            xc, yc = x[start : start + _CHUNK], y[start : start + _CHUNK]
+        for centre, tau_s, xc, yc in _fit_chunks(track, act, nb, fresh, x, y):
             lo = _fit_ratio(tau_s[:, None, :], xc[:, None, :], yc[:, None, :], leave_out, config)
             loo[centre] = np.where(np.isfinite(lo), lo, ratio[centre][:, None])
         c = act[fresh]
@@ -804,6 +798,20 @@ def _local_offsets(
         x[row[q[rev]], back] = -(s * np.sin(az2))[rev]
         y[row[q[rev]], back] = -(s * np.cos(az2))[rev]
     return x, y
+
+
+def _fit_chunks(track, act: np.ndarray, nb: np.ndarray, centres: np.ndarray, x: np.ndarray,
+                y: np.ndarray):
+    """Yield the local fits' inputs ``_CHUNK`` centres at a time.
+
+    Yields (centres, time offsets of their neighbours (s), x, y): the rows of
+    ``x`` and ``y`` (from :func:`_local_offsets` for ``centres``) that go
+    with those centres.
+    """
+    for start in range(0, centres.size, _CHUNK):
+        rows = slice(start, start + _CHUNK)
+        centre = centres[rows]
+        yield centre, track.t[act[nb[centre]]] - track.t[act[centre]][:, None], x[rows], y[rows]
 
 
 def _fit_ratio(

@@ -166,11 +166,11 @@ def _column_parts(column: pd.Series) -> tuple[dict, list] | None:
         import pyarrow as pa
 
         chunked = column.array._pa_array  # noqa: SLF001 - the array's own Arrow data
-        array = pa.concat_arrays(chunked.chunks) if chunked.num_chunks != 1 else \
-            chunked.chunk(0)
-        array = pa.concat_arrays([array])  # compact buffers, offset 0
-        if array.type != pa.large_string() and array.type != pa.string():
+        if chunked.type not in (pa.string(), pa.large_string()):
             return None
+        # one array with compact buffers at offset 0 (a slice keeps its parent's)
+        array = pa.concat_arrays(chunked.chunks) if chunked.num_chunks else \
+            pa.array([], chunked.type)
         validity, offsets, data = array.buffers()
         parts = [b"" if validity is None else validity.to_pybytes(),
                  offsets.to_pybytes(), b"" if data is None else data.to_pybytes()]
@@ -256,10 +256,10 @@ def _decode_table(data: bytes) -> pd.DataFrame:
             import pyarrow as pa
 
             kind = pa.large_string() if desc["str"] == "large_string" else pa.string()
-            validity = pa.py_buffer(bytes(buffers[0])) if len(buffers[0]) else None
+            validity = pa.py_buffer(buffers[0]) if len(buffers[0]) else None
             array = pa.Array.from_buffers(
-                kind, rows, [validity, pa.py_buffer(bytes(buffers[1])),
-                             pa.py_buffer(bytes(buffers[2]))], null_count=desc["nulls"])
+                kind, rows, [validity, pa.py_buffer(buffers[1]), pa.py_buffer(buffers[2])],
+                null_count=desc["nulls"])
             out[name] = pd.array(array, dtype=pd.StringDtype("pyarrow"))
     table = pd.DataFrame(out, index=index, copy=False)
     if not head["columns"]:

@@ -459,19 +459,21 @@ def _pandas_csv(table: pd.DataFrame, header: bool) -> str:
                 column.dtype, pd.StringDtype | pd.CategoricalDtype):
             continue
         values = column.astype(object).to_numpy()
-        texts = [v for v in values.tolist() if isinstance(v, str)]
-        if any("\x00" in v for v in texts):
-            return table.to_csv(None, index=False, header=header, lineterminator="\n")
-        has_cr = np.array([isinstance(v, str) and "\r" in v for v in values.tolist()],
-                          dtype=bool)
-        if not has_cr.any():
+        with_cr = []
+        for i, v in enumerate(values.tolist()):
+            if isinstance(v, str):
+                if "\x00" in v:
+                    return table.to_csv(None, index=False, header=header, lineterminator="\n")
+                if "\r" in v:
+                    with_cr.append(i)
+        if not with_cr:
             continue
         if out is table:
             out = table.copy()
         values = values.copy()
-        for i in np.flatnonzero(has_cr).tolist():
-            values[i] = f"\x00{len(quoted)}\x00"
-            quoted.append(_csv_field(table.iloc[i, k]))
+        for i in with_cr:
+            quoted.append(_csv_field(values[i]))
+            values[i] = f"\x00{len(quoted) - 1}\x00"
         out.isetitem(k, values)
     text = out.to_csv(None, index=False, header=header, lineterminator="\n")
     if quoted:
